@@ -1,0 +1,194 @@
+import { sql } from "drizzle-orm";
+import {
+  blob,
+  check,
+  index,
+  integer,
+  primaryKey,
+  real,
+  sqliteTable,
+  text,
+  unique,
+} from "drizzle-orm/sqlite-core";
+
+// Times are integer epoch milliseconds throughout.
+
+export const WEIGHT_ATTRIBUTES = ["bytes", "packets"] as const;
+export type WeightAttribute = (typeof WEIGHT_ATTRIBUTES)[number];
+
+export const KEY_SCOPES = ["ingest", "query", "ingest,query"] as const;
+export type KeyScopes = (typeof KEY_SCOPES)[number];
+
+export const tenants = sqliteTable(
+  "tenants",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    slug: text("slug").notNull().unique(),
+    name: text("name").notNull(),
+    sampleSize: integer("sample_size").notNull().default(1024),
+    windowSeconds: integer("window_seconds").notNull().default(300),
+    weightAttribute: text("weight_attribute", { enum: WEIGHT_ATTRIBUTES }).notNull().default("bytes"),
+    retentionDays: integer("retention_days").notNull().default(30),
+    createdAt: integer("created_at").notNull().$defaultFn(() => Date.now()),
+  },
+  (t) => [
+    check("tenants_weight_attribute_check", sql`${t.weightAttribute} in ('bytes', 'packets')`),
+    check("tenants_sample_size_check", sql`${t.sampleSize} > 0`),
+    check("tenants_window_seconds_check", sql`${t.windowSeconds} > 0`),
+  ],
+);
+
+/** A named source of records inside a tenant (a router, a site, a script). */
+export const collectors = sqliteTable(
+  "collectors",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    tenantId: integer("tenant_id")
+      .notNull()
+      .references(() => tenants.id, { onDelete: "cascade" }),
+    name: text("name").notNull(),
+    createdAt: integer("created_at").notNull().$defaultFn(() => Date.now()),
+    lastSeenAt: integer("last_seen_at"),
+  },
+  (t) => [unique("collectors_tenant_name_unique").on(t.tenantId, t.name)],
+);
+
+/**
+ * Keys are shown once at creation; only the SHA-256 of the whole key is kept, so a leaked
+ * database does not leak usable keys. `prefix` is the short visible part that lets a person
+ * tell keys apart in the console.
+ */
+export const apiKeys = sqliteTable(
+  "api_keys",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    tenantId: integer("tenant_id")
+      .notNull()
+      .references(() => tenants.id, { onDelete: "cascade" }),
+    collectorId: integer("collector_id")
+      .notNull()
+      .references(() => collectors.id, { onDelete: "cascade" }),
+    prefix: text("prefix").notNull().unique(),
+    hash: text("hash").notNull().unique(),
+    scopes: text("scopes", { enum: KEY_SCOPES }).notNull(),
+    createdAt: integer("created_at").notNull().$defaultFn(() => Date.now()),
+    createdBy: text("created_by"),
+    lastUsedAt: integer("last_used_at"),
+    revokedAt: integer("revoked_at"),
+  },
+  (t) => [check("api_keys_scopes_check", sql`${t.scopes} in ('ingest', 'query', 'ingest,query')`)],
+);
+
+/**
+ * The persisted state of one priority sample (Duffield, Lund, Thorup, "Priority sampling
+ * for estimation of arbitrary subset sums", J. ACM 54(6), 2007) for one
+ * (tenant, collector, window, node). `node` is in the key so several Weir nodes can sample
+ * the same collector at once without coordinating; estimates sum over their reservoirs.
+ */
+export const reservoirs = sqliteTable(
+  "reservoirs",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    tenantId: integer("tenant_id")
+      .notNull()
+      .references(() => tenants.id, { onDelete: "cascade" }),
+    collectorId: integer("collector_id")
+      .notNull()
+      .references(() => collectors.id, { onDelete: "cascade" }),
+    windowStart: integer("window_start").notNull(),
+    windowSeconds: integer("window_seconds").notNull(),
+    node: text("node").notNull(),
+    k: integer("k").notNull(),
+    // The (k+1)-th highest priority seen; 0 while at most k records were seen.
+    tau: real("tau").notNull().default(0),
+    // Exact count of every record seen in the window, kept or not.
+    records: integer("records").notNull().default(0),
+    // Exact sums over every record seen, as decimal text: they add up unsigned 64-bit
+    // counters and can exceed SQLite's signed 64-bit INTEGER.
+    bytes: text("bytes").notNull().default("0"),
+    packets: text("packets").notNull().default("0"),
+    // Next `kept_records.seq` to hand out; never reused within a reservoir.
+    nextSeq: integer("next_seq").notNull().default(0),
+    updatedAt: integer("updated_at").notNull().$defaultFn(() => Date.now()),
+  },
+  (t) => [
+    unique("reservoirs_key_unique").on(t.tenantId, t.collectorId, t.windowStart, t.windowSeconds, t.node),
+    index("reservoirs_tenant_window_idx").on(t.tenantId, t.windowStart),
+  ],
+);
+
+/** The records a reservoir currently keeps (at most k per reservoir). */
+export const keptRecords = sqliteTable(
+  "kept_records",
+  {
+    reservoirId: integer("reservoir_id")
+      .notNull()
+      .references(() => reservoirs.id, { onDelete: "cascade" }),
+    seq: integer("seq").notNull(),
+    priority: real("priority").notNull(),
+    weight: real("weight").notNull(),
+    // 16-byte addresses, IPv4 mapped into ::ffff:0:0/96, so a CIDR of either family is a
+    // byte range and an index range scan.
+    src: blob("src", { mode: "buffer" }).notNull(),
+    dst: blob("dst", { mode: "buffer" }).notNull(),
+    sport: integer("sport").notNull(),
+    dport: integer("dport").notNull(),
+    proto: integer("proto").notNull(),
+    // Doubles, exact up to 2^53, which is plenty for one flow; the exact per-window sums
+    // live on the reservoir row.
+    bytes: real("bytes").notNull(),
+    packets: real("packets").notNull(),
+    startMs: integer("start_ms"),
+    endMs: integer("end_ms"),
+    ingressInterface: integer("ingress_interface"),
+    egressInterface: integer("egress_interface"),
+    srcAs: integer("src_as"),
+    dstAs: integer("dst_as"),
+  },
+  (t) => [
+    primaryKey({ columns: [t.reservoirId, t.seq] }),
+    index("kept_records_src_idx").on(t.reservoirId, t.src),
+    index("kept_records_dst_idx").on(t.reservoirId, t.dst),
+  ],
+);
+
+/**
+ * One row per accepted ingest batch. `response` is the JSON answer, so a retry with the
+ * same Idempotency-Key gets the same answer without counting the batch twice.
+ */
+export const ingestBatches = sqliteTable(
+  "ingest_batches",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    tenantId: integer("tenant_id")
+      .notNull()
+      .references(() => tenants.id, { onDelete: "cascade" }),
+    collectorId: integer("collector_id")
+      .notNull()
+      .references(() => collectors.id, { onDelete: "cascade" }),
+    // NULL for batches sent without the header; SQLite treats NULLs as distinct in UNIQUE.
+    idempotencyKey: text("idempotency_key"),
+    receivedAt: integer("received_at").notNull().$defaultFn(() => Date.now()),
+    recordCount: integer("record_count").notNull(),
+    // Sum of the batch's byte counters, decimal text for the same reason as reservoirs.bytes.
+    bytes: text("bytes").notNull(),
+    response: text("response").notNull(),
+  },
+  (t) => [
+    unique("ingest_batches_idempotency_unique").on(t.tenantId, t.idempotencyKey),
+    index("ingest_batches_tenant_received_idx").on(t.tenantId, t.receivedAt),
+  ],
+);
+
+export type Tenant = typeof tenants.$inferSelect;
+export type NewTenant = typeof tenants.$inferInsert;
+export type Collector = typeof collectors.$inferSelect;
+export type NewCollector = typeof collectors.$inferInsert;
+export type ApiKey = typeof apiKeys.$inferSelect;
+export type NewApiKey = typeof apiKeys.$inferInsert;
+export type Reservoir = typeof reservoirs.$inferSelect;
+export type NewReservoir = typeof reservoirs.$inferInsert;
+export type KeptRecord = typeof keptRecords.$inferSelect;
+export type NewKeptRecord = typeof keptRecords.$inferInsert;
+export type IngestBatch = typeof ingestBatches.$inferSelect;
+export type NewIngestBatch = typeof ingestBatches.$inferInsert;

@@ -1,0 +1,95 @@
+import { existsSync } from "node:fs";
+import { z } from "zod";
+
+/**
+ * A development-only session secret, so `npm run dev` works without a `.env`.
+ * Production refuses to start with it (see the refinement below).
+ */
+export const DEV_SESSION_SECRET = "weir-development-session-secret-do-not-use-in-production";
+
+const LOG_LEVELS = ["fatal", "error", "warn", "info", "debug", "trace", "silent"] as const;
+
+export const envSchema = z
+  .object({
+    NODE_ENV: z.enum(["development", "production", "test"]).default("development"),
+    HOST: z.string().min(1).default("127.0.0.1"),
+    PORT: z.coerce.number().int().min(0).max(65535).default(3000),
+    DATABASE_URL: z
+      .string()
+      .regex(/^(file|libsql|https?|wss?):/, "must be a file:, libsql:, http(s): or ws(s): URL")
+      .default("file:./data/weir.db"),
+    DATABASE_AUTH_TOKEN: z.string().min(1).optional(),
+    // Part of every reservoir key, so it must stay stable across restarts of the same node.
+    NODE_ID: z
+      .string()
+      .regex(/^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$/, "must be 1–64 letters, digits, '.', '_' or '-'")
+      .default("node-1"),
+    LOG_LEVEL: z.enum(LOG_LEVELS).default("info"),
+    SESSION_SECRET: z.string().min(32, "must be at least 32 characters").default(DEV_SESSION_SECRET),
+    INGEST_MAX_BODY_BYTES: z.coerce.number().int().positive().default(16_777_216),
+    INGEST_MAX_RECORDS: z.coerce.number().int().positive().default(100_000),
+    IDEMPOTENCY_TTL_HOURS: z.coerce.number().positive().default(24),
+  })
+  .superRefine((env, ctx) => {
+    if (env.NODE_ENV === "production" && env.SESSION_SECRET === DEV_SESSION_SECRET) {
+      ctx.addIssue({
+        code: "custom",
+        path: ["SESSION_SECRET"],
+        message: "must be set in production (the development default would let anyone forge sessions)",
+      });
+    }
+  });
+
+export type Env = z.infer<typeof envSchema>;
+
+export class EnvError extends Error {
+  constructor(readonly problems: string[]) {
+    super(`Invalid environment:\n${problems.map((p) => `  - ${p}`).join("\n")}`);
+    this.name = "EnvError";
+  }
+}
+
+/**
+ * Validates environment variables. Empty strings count as unset, because env files and
+ * container specs often write `NAME=` to mean "use the default".
+ * Throws an {@link EnvError} naming every bad variable at once.
+ */
+export function parseEnv(source: Record<string, string | undefined>): Env {
+  const input: Record<string, string> = {};
+  for (const key of Object.keys(envSchema.shape)) {
+    const value = source[key];
+    if (value !== undefined && value !== "") input[key] = value;
+  }
+  const result = envSchema.safeParse(input);
+  if (result.success) return result.data;
+  throw new EnvError(
+    result.error.issues.map((issue) => {
+      const name = issue.path.join(".") || "(environment)";
+      const given = typeof issue.path[0] === "string" ? input[issue.path[0]] : undefined;
+      const shown = given === undefined || name === "SESSION_SECRET" || name === "DATABASE_AUTH_TOKEN"
+        ? ""
+        : ` (got ${JSON.stringify(given)})`;
+      return `${name}: ${issue.message}${shown}`;
+    }),
+  );
+}
+
+let cached: Env | undefined;
+
+/**
+ * The process environment, validated once. Loads `.env` from the working directory when
+ * present (variables already set in the environment win). On invalid values it prints
+ * every problem and exits, since nothing useful can run on a bad configuration.
+ */
+export function loadEnv(): Env {
+  if (cached) return cached;
+  if (existsSync(".env")) process.loadEnvFile(".env");
+  try {
+    cached = parseEnv(process.env);
+  } catch (error) {
+    if (!(error instanceof EnvError)) throw error;
+    console.error(error.message);
+    process.exit(1);
+  }
+  return cached;
+}

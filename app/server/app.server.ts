@@ -1,0 +1,202 @@
+import { existsSync } from "node:fs";
+import { createServer, type Server } from "node:http";
+import type { AddressInfo } from "node:net";
+import { join } from "node:path";
+import { fileURLToPath, pathToFileURL } from "node:url";
+import { createRequestHandler } from "@react-router/express";
+import express, { type ErrorRequestHandler, type RequestHandler } from "express";
+import type { ServerBuild } from "react-router";
+import type { ViteDevServer } from "vite";
+import { closeDb, createDb, type Db } from "../db/client.server";
+import { runMigrations } from "../db/migrate.server";
+import { loadEnv, type Env } from "../env.server";
+import { createLogger, type Logger } from "../logger.server";
+import { ReservoirManager } from "../ingest/manager.server";
+import type { UniformSource } from "../sampling/uniform";
+
+declare module "react-router" {
+  // What every loader and action receives as `context`. Server-wide resources travel this
+  // way because route modules live in another module graph (Vite's in development, the
+  // server bundle in production) and would otherwise open their own copies.
+  interface AppLoadContext {
+    db: Db;
+    env: Env;
+    logger: Logger;
+    manager: ReservoirManager;
+  }
+}
+
+const PROJECT_ROOT = fileURLToPath(new URL("../..", import.meta.url));
+const SHUTDOWN_GRACE_MS = 10_000;
+
+export interface StartServerOptions {
+  /** Validated environment; defaults to `loadEnv()` (process env and `.env`). */
+  env?: Env;
+  /** Overrides `env.PORT`; 0 asks the OS for a free port. */
+  port?: number;
+  /** Overrides `env.HOST`. */
+  host?: string;
+  /** Defaults to a pino logger at `env.LOG_LEVEL`. */
+  logger?: Logger;
+  /** Where priorities draw their uniforms; tests inject a seeded source. */
+  uniform?: UniformSource;
+}
+
+export interface WeirServer {
+  /** Base URL without a trailing slash, e.g. `http://127.0.0.1:3000`. */
+  url: string;
+  port: number;
+  httpServer: Server;
+  app: express.Express;
+  db: Db;
+  env: Env;
+  logger: Logger;
+  manager: ReservoirManager;
+  /** Stops accepting connections, lets in-flight requests finish, then closes the database. */
+  close(): Promise<void>;
+}
+
+/**
+ * Opens the database, applies pending migrations, and serves the app: through Vite
+ * middleware in development (and tests), from `build/` in production. Resolves once the
+ * server is listening.
+ */
+export async function startServer(options: StartServerOptions = {}): Promise<WeirServer> {
+  const env = options.env ?? loadEnv();
+  const logger = options.logger ?? createLogger(env.LOG_LEVEL);
+  const production = env.NODE_ENV === "production";
+
+  const db = await createDb(env.DATABASE_URL, env.DATABASE_AUTH_TOKEN);
+  let vite: ViteDevServer | undefined;
+  try {
+    await runMigrations(db);
+    logger.info("database migrated");
+    const manager = new ReservoirManager(db, {
+      node: env.NODE_ID,
+      uniform: options.uniform,
+      idempotencyTtlMs: env.IDEMPOTENCY_TTL_HOURS * 3600_000,
+    });
+
+    const app = express();
+    app.disable("x-powered-by");
+    // Created before Vite so its HMR socket can share this port: a second fixed port would
+    // collide between a dev server and a test run on the same machine. Later WebSocket
+    // endpoints attach to this server's `upgrade` event the same way.
+    const httpServer = createServer(app);
+
+    let build: ServerBuild | (() => Promise<ServerBuild>);
+    if (production) {
+      build = await loadProductionBuild(app);
+    } else {
+      const { createServer: createViteServer } = await import("vite");
+      vite = await createViteServer({
+        root: PROJECT_ROOT,
+        server: { middlewareMode: true, hmr: { server: httpServer } },
+      });
+      app.use(vite.middlewares);
+      const devServer = vite;
+      // Loaded per request so edits to routes show up without a restart.
+      build = () =>
+        devServer.ssrLoadModule("virtual:react-router/server-build") as Promise<ServerBuild>;
+    }
+
+    // After the asset handlers, so only application requests are logged.
+    app.use(requestLog(logger));
+    app.all(
+      "/{*splat}",
+      createRequestHandler({
+        build,
+        mode: production ? "production" : "development",
+        getLoadContext: () => ({ db, env, logger, manager }),
+      }),
+    );
+    app.use(lastResortErrorHandler(logger));
+
+    const port = await listen(httpServer, options.port ?? env.PORT, options.host ?? env.HOST);
+    const host = options.host ?? env.HOST;
+    const url = `http://${host.includes(":") ? `[${host}]` : host}:${port}`;
+
+    let closing: Promise<void> | undefined;
+    const close = () => {
+      closing ??= shutDown(httpServer, vite, db, logger, manager);
+      return closing;
+    };
+    return { url, port, httpServer, app, db, env, logger, manager, close };
+  } catch (error) {
+    await vite?.close();
+    closeDb(db);
+    throw error;
+  }
+}
+
+async function loadProductionBuild(app: express.Express): Promise<ServerBuild> {
+  const serverEntry = join(PROJECT_ROOT, "build/server/index.js");
+  if (!existsSync(serverEntry)) {
+    throw new Error("No production build found; run `npm run build` first");
+  }
+  const clientDir = join(PROJECT_ROOT, "build/client");
+  // File names under /assets carry a content hash, so browsers may keep them forever.
+  app.use("/assets", express.static(join(clientDir, "assets"), { immutable: true, maxAge: "1y" }));
+  app.use(express.static(clientDir, { maxAge: "1h" }));
+  return (await import(pathToFileURL(serverEntry).href)) as ServerBuild;
+}
+
+function listen(server: Server, port: number, host: string): Promise<number> {
+  return new Promise((resolve, reject) => {
+    server.once("error", reject);
+    server.listen(port, host, () => {
+      server.off("error", reject);
+      resolve((server.address() as AddressInfo).port);
+    });
+  });
+}
+
+async function shutDown(
+  server: Server,
+  vite: ViteDevServer | undefined,
+  db: Db,
+  logger: Logger,
+  manager: ReservoirManager,
+): Promise<void> {
+  logger.info("shutting down");
+  const closed = new Promise<void>((resolve) => server.close(() => resolve()));
+  // Requests still running after the grace period are cut off rather than holding the
+  // process open forever (a stuck client must not block a deploy).
+  const force = setTimeout(() => server.closeAllConnections(), SHUTDOWN_GRACE_MS);
+  force.unref();
+  // Vite's HMR sockets are long-lived; closing Vite ends them so `server.close` can finish.
+  await vite?.close();
+  await closed;
+  clearTimeout(force);
+  // Batches already acknowledged are committed; let any still being applied finish.
+  await manager.idle();
+  closeDb(db);
+  logger.info("stopped");
+}
+
+function requestLog(logger: Logger): RequestHandler {
+  return (req, res, next) => {
+    const startedAt = performance.now();
+    res.on("finish", () => {
+      logger.info(
+        {
+          method: req.method,
+          path: req.path,
+          status: res.statusCode,
+          ms: Math.round(performance.now() - startedAt),
+        },
+        "request",
+      );
+    });
+    next();
+  };
+}
+
+// React Router answers its own errors; this only catches failures outside it.
+function lastResortErrorHandler(logger: Logger): ErrorRequestHandler {
+  return (error, req, res, next) => {
+    logger.error({ err: error, method: req.method, path: req.path }, "unhandled request error");
+    if (res.headersSent) return next(error);
+    res.status(500).json({ error: "internal_error" });
+  };
+}

@@ -1,0 +1,7 @@
+// Minimal typings for the parts of jstat (npm "jstat", no bundled types) the tests use.
+declare module "jstat" {
+  const jStat: {
+    normal: { inv(p: number, mean: number, std: number): number; cdf(x: number, mean: number, std: number): number };
+  };
+  export default jStat;
+}
