@@ -1,0 +1,7 @@
+import { type RouteConfig, index, route } from "@react-router/dev/routes";
+
+export default [
+  index("routes/home.tsx"),
+  route("healthz", "routes/healthz.ts"),
+  route("api/v1/flows", "routes/api.v1.flows.ts"),
+] satisfies RouteConfig;

@@ -1,0 +1,57 @@
+import { ApiError, authenticateKey, touchKey } from "~/auth/api-keys.server";
+import { parseFlowBatch } from "~/flow/record";
+import { invalidRecords, readRecordValues } from "~/ingest/body.server";
+import type { Route } from "./+types/api.v1.flows";
+
+// Printable ASCII, as in the IETF idempotency-key header draft's examples; long enough for UUIDs and hashes.
+const IDEMPOTENCY_KEY = /^[\x21-\x7e]{1,200}$/;
+
+/**
+ * POST /api/v1/flows — ingest a batch of flow records (JSON array or NDJSON,
+ * optionally gzip). The batch is atomic and the answer is sent only after it is
+ * stored; a retry with the same Idempotency-Key is applied once.
+ */
+export async function action({ request, context }: Route.ActionArgs) {
+  const { db, env, logger, manager } = context;
+  try {
+    if (request.method !== "POST") throw new ApiError(405, "method_not_allowed", "Use POST to send flow records.");
+    const principal = await authenticateKey(db, request, "ingest");
+    const idempotencyKey = request.headers.get("idempotency-key") ?? undefined;
+    if (idempotencyKey !== undefined && !IDEMPOTENCY_KEY.test(idempotencyKey)) {
+      throw new ApiError(400, "invalid_idempotency_key", "Idempotency-Key must be 1–200 printable ASCII characters without spaces.");
+    }
+    const values = await readRecordValues(request, { maxBodyBytes: env.INGEST_MAX_BODY_BYTES, maxRecords: env.INGEST_MAX_RECORDS });
+    const parsed = parseFlowBatch(values);
+    if (!parsed.ok) throw invalidRecords(parsed.details, parsed.invalidCount);
+    const answer = await manager.ingest({
+      tenant: principal.tenant,
+      collector: principal.collector,
+      records: parsed.records,
+      receivedAt: Date.now(),
+      idempotencyKey,
+    });
+    await touchKey(db, principal.keyId);
+    return Response.json(answer, { headers: { "Cache-Control": "no-store" } });
+  } catch (error) {
+    return errorResponse(error, logger);
+  }
+}
+
+export function loader() {
+  return new ApiError(405, "method_not_allowed", "Use POST to send flow records.").toResponse({ Allow: "POST" });
+}
+
+function errorResponse(error: unknown, logger: Route.ActionArgs["context"]["logger"]): Response {
+  if (error instanceof ApiError) return error.toResponse(error.status === 405 ? { Allow: "POST" } : undefined);
+  if (isBusy(error)) {
+    logger.warn({ err: error }, "ingest: database busy");
+    return new ApiError(503, "busy", "The database is busy; nothing of this batch was stored. Retry with the same Idempotency-Key.").toResponse({ "Retry-After": "1" });
+  }
+  logger.error({ err: error }, "ingest failed");
+  return new ApiError(500, "internal_error", "Ingest failed; nothing of this batch was stored. Retry with the same Idempotency-Key.").toResponse();
+}
+
+function isBusy(error: unknown): boolean {
+  const code = (error as { code?: string }).code ?? "";
+  return code.startsWith("SQLITE_BUSY") || code.startsWith("SQLITE_LOCKED");
+}
