@@ -4,4 +4,5 @@ export default [
   index("routes/home.tsx"),
   route("healthz", "routes/healthz.ts"),
   route("api/v1/flows", "routes/api.v1.flows.ts"),
+  route("api/v1/estimate", "routes/api.v1.estimate.ts"),
 ] satisfies RouteConfig;

@@ -44,27 +44,11 @@ CREATE UNIQUE INDEX `ingest_batches_idempotency_unique` ON `ingest_batches` (`te
 CREATE TABLE `kept_records` (
 	`reservoir_id` integer NOT NULL,
 	`seq` integer NOT NULL,
-	`priority` real NOT NULL,
-	`weight` real NOT NULL,
-	`src` blob NOT NULL,
-	`dst` blob NOT NULL,
-	`sport` integer NOT NULL,
-	`dport` integer NOT NULL,
-	`proto` integer NOT NULL,
-	`bytes` real NOT NULL,
-	`packets` real NOT NULL,
-	`start_ms` integer,
-	`end_ms` integer,
-	`ingress_interface` integer,
-	`egress_interface` integer,
-	`src_as` integer,
-	`dst_as` integer,
+	`data` blob NOT NULL,
 	PRIMARY KEY(`reservoir_id`, `seq`),
 	FOREIGN KEY (`reservoir_id`) REFERENCES `reservoirs`(`id`) ON UPDATE no action ON DELETE cascade
 );
 --> statement-breakpoint
-CREATE INDEX `kept_records_src_idx` ON `kept_records` (`reservoir_id`,`src`);--> statement-breakpoint
-CREATE INDEX `kept_records_dst_idx` ON `kept_records` (`reservoir_id`,`dst`);--> statement-breakpoint
 CREATE TABLE `reservoirs` (
 	`id` integer PRIMARY KEY AUTOINCREMENT NOT NULL,
 	`tenant_id` integer NOT NULL,

@@ -1,17 +1,49 @@
 // `npm run bench`: figures and ratios against baselines measured in the same run.
 // Nothing here is asserted; the goals are printed beside the figures.
+// `npm run bench -- --quick` runs smaller sizes (for a smoke check, not for the README).
+import { benchAccuracy } from "./bench/accuracy";
+import { benchIngest } from "./bench/ingest";
+import { benchQuery } from "./bench/query";
 import { benchReservoir } from "./bench/reservoir";
+import { fmt } from "./bench/util";
 
-const fmt = (n: number, digits = 1) => n.toLocaleString("en-US", { maximumFractionDigits: digits });
+const quick = process.argv.includes("--quick");
+const scale = quick ? 0.1 : 1;
+const mb = (bytes: number) => `${fmt(bytes / 1048576)} MiB`;
 
 function section(title: string) {
   console.log(`\n== ${title}`);
 }
 
-section("Reservoir updates (k = 1024, 10 million heavy-tailed records, best of 5)");
-const r = benchReservoir();
-console.log(`updates/s            ${fmt(r.updatesPerSecond / 1e6)} M   (goal ≥ 40 M)`);
-console.log(`ns per update        ${fmt(r.nsPerUpdate, 2)}`);
-console.log(`floor ns per record  ${fmt(r.floorNsPerRecord, 2)}   (draw u and compute w/u only)`);
-console.log(`update / floor       ${fmt(r.ratioToFloor, 2)}×   (goal ≤ 2×)`);
-console.log(`records that entered ${fmt(r.entered, 0)}   (k·(1 + ln(n/k)) ≈ ${fmt(r.k * (1 + Math.log(r.records / r.k)), 0)} expected for i.i.d. priorities)`);
+section(`Reservoir updates (k = 1024, ${fmt(10 * scale, 0)} million heavy-tailed records, best of 5)`);
+const r = benchReservoir(10_000_000 * scale);
+console.log(`updates/s              ${fmt(r.updatesPerSecond / 1e6)} M   (goal ≥ 40 M)`);
+console.log(`ns per update          ${fmt(r.nsPerUpdate, 2)}`);
+console.log(`floor ns per record    ${fmt(r.floorNsPerRecord, 2)}   (draw u and compute w/u only)`);
+console.log(`update / floor         ${fmt(r.ratioToFloor, 2)}×   (goal ≤ 2×)`);
+console.log(`records that entered   ${fmt(r.entered, 0)}   (k·(1 + ln(n/k)) ≈ ${fmt(r.k * (1 + Math.log(r.records / r.k)), 0)} expected for i.i.d. priorities)`);
+
+section(`Ingest over HTTP on loopback (NDJSON batches of 5 000, k = 1024, 5-minute windows, ${fmt(2 * scale, 1)} million records over one hour)`);
+const i = await benchIngest(2_000_000 * scale);
+console.log(`HTTP ingest            ${fmt(i.httpRecordsPerSecond, 0)} records/s   (goal ≥ 200 000)`);
+console.log(`parse + validate only  ${fmt(i.ceilingRecordsPerSecond, 0)} records/s   (the ceiling: same bodies, same code, no HTTP, no sampling, no storage)`);
+console.log(`HTTP / ceiling         ${fmt(i.httpRecordsPerSecond / i.ceilingRecordsPerSecond, 2)}   (goal ≥ 0.6)`);
+console.log(`keep everything        ${fmt(i.keepAllRecordsPerSecond, 0)} records/s   (the same records inserted into a plain SQLite table, in process)`);
+console.log(`ingest ratio           ${fmt(i.httpRecordsPerSecond / i.keepAllRecordsPerSecond, 2)}× the keep-everything insert rate`);
+console.log(`on disk                Weir ${mb(i.weirBytes)} (${i.windows} reservoirs) against ${mb(i.keepAllBytes)}: ${fmt(i.keepAllBytes / i.weirBytes, 0)}× smaller`);
+
+section(`Query latency (one day: 288 windows × k = 1024 from ${fmt(10 * scale, 0)} million records; CIDR filter + group by destination /24)`);
+const q = await benchQuery(10_000_000 * scale);
+console.log(`data set               ${q.windows} windows, ${fmt(q.keptRecords, 0)} kept records, built in ${fmt(q.buildSeconds, 0)} s`);
+console.log(`first query            ${fmt(q.firstQueryMs, 0)} ms   (reads the kept records from SQLite into the snapshot cache)`);
+console.log(`p50 / p95 over 50      ${fmt(q.p50Ms, 1)} / ${fmt(q.p95Ms, 1)} ms over HTTP   (goal p50 ≤ 50 ms)`);
+console.log(`exact SUM, p50 of ${q.exactRuns}    ${fmt(q.exactP50Ms, 0)} ms   (full scan of the keep-everything table)`);
+console.log(`speed-up               ${fmt(q.exactP50Ms / q.p50Ms, 0)}×   (goal ≥ 50×)`);
+console.log(`on disk                Weir ${mb(q.weirBytes)} against ${mb(q.keepAllBytes)}`);
+console.log(`checked answer         |estimate − exact| = ${fmt(q.zOfCheckedQuery, 2)} standard errors`);
+
+section("Accuracy at equal k: priority sampling against uniform reservoir sampling (Algorithm R)");
+const a = benchAccuracy();
+console.log(`set-up                 ${fmt(a.records, 0)} Pareto records, k = ${a.k}, ${a.trials} trials, ${a.subsets} subsets holding 0.5–2% of the bytes`);
+console.log(`relative RMSE          priority ${fmt(a.priorityRelRmse, 3)}, uniform ${fmt(a.uniformRelRmse, 3)}`);
+console.log(`priority / uniform     ${fmt(a.ratio, 3)}   (goal ≤ 1/3)`);

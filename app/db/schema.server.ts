@@ -117,7 +117,13 @@ export const reservoirs = sqliteTable(
   ],
 );
 
-/** The records a reservoir currently keeps (at most k per reservoir). */
+/**
+ * The records a reservoir currently keeps (at most k per reservoir), one row each. `data`
+ * holds priority, weight and every flow field in the fixed binary layout of
+ * app/ingest/kept-codec.ts: the SQLite driver costs about a microsecond per bound value,
+ * and one blob per batch (split into rows by SQL) is what keeps ingest fast. Counters stay
+ * exact there (unsigned 64-bit).
+ */
 export const keptRecords = sqliteTable(
   "kept_records",
   {
@@ -125,31 +131,9 @@ export const keptRecords = sqliteTable(
       .notNull()
       .references(() => reservoirs.id, { onDelete: "cascade" }),
     seq: integer("seq").notNull(),
-    priority: real("priority").notNull(),
-    weight: real("weight").notNull(),
-    // 16-byte addresses, IPv4 mapped into ::ffff:0:0/96, so a CIDR of either family is a
-    // byte range and an index range scan.
-    src: blob("src", { mode: "buffer" }).notNull(),
-    dst: blob("dst", { mode: "buffer" }).notNull(),
-    sport: integer("sport").notNull(),
-    dport: integer("dport").notNull(),
-    proto: integer("proto").notNull(),
-    // Doubles, exact up to 2^53, which is plenty for one flow; the exact per-window sums
-    // live on the reservoir row.
-    bytes: real("bytes").notNull(),
-    packets: real("packets").notNull(),
-    startMs: integer("start_ms"),
-    endMs: integer("end_ms"),
-    ingressInterface: integer("ingress_interface"),
-    egressInterface: integer("egress_interface"),
-    srcAs: integer("src_as"),
-    dstAs: integer("dst_as"),
+    data: blob("data", { mode: "buffer" }).notNull(),
   },
-  (t) => [
-    primaryKey({ columns: [t.reservoirId, t.seq] }),
-    index("kept_records_src_idx").on(t.reservoirId, t.src),
-    index("kept_records_dst_idx").on(t.reservoirId, t.dst),
-  ],
+  (t) => [primaryKey({ columns: [t.reservoirId, t.seq] })],
 );
 
 /**

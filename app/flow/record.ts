@@ -374,6 +374,85 @@ function toRecord(wire: Wire, issues: FlowRecordIssue[]): FlowRecord | undefined
   };
 }
 
+// ---- the fast path --------------------------------------------------------------------
+
+// Ingest validates every record of every batch. This one pass handles the common shape —
+// each field under one name, counters and times as JSON numbers — and gives up (undefined)
+// on anything else, which then takes the thorough path with its messages. It accepts only
+// what the thorough path accepts, with the same result; a property test checks that.
+const F_SRC = 1, F_DST = 2, F_SPORT = 4, F_DPORT = 8, F_PROTO = 16, F_BYTES = 32, F_PACKETS = 64, F_START = 128, F_END = 256;
+const F_IN = 512, F_OUT = 1024, F_SRC_AS = 2048, F_DST_AS = 4096;
+const F_REQUIRED = F_SRC | F_DST | F_PROTO | F_BYTES | F_PACKETS;
+
+function fastAddress(parse: (text: string) => Uint8Array, v: unknown): Uint8Array | undefined {
+  if (typeof v !== "string") return undefined;
+  try {
+    return parse(v);
+  } catch {
+    return undefined;
+  }
+}
+
+const isUint = (v: unknown, max: number): v is number => typeof v === "number" && Number.isInteger(v) && v >= 0 && v <= max;
+const isCount = (v: unknown): v is number => typeof v === "number" && Number.isSafeInteger(v) && v >= 1;
+const isTime = (v: unknown): v is number => typeof v === "number" && Number.isSafeInteger(v) && v >= 0;
+
+function fastRecord(value: unknown): FlowRecord | undefined {
+  if (typeof value !== "object" || value === null || Array.isArray(value)) return undefined;
+  const o = value as Record<string, unknown>;
+  let seen = 0;
+  let src: Uint8Array | undefined;
+  let dst: Uint8Array | undefined;
+  let sport = 0, dport = 0, proto = 0, bytes = 0, packets = 0;
+  let start: number | null = null, end: number | null = null;
+  let ingress: number | null = null, egress: number | null = null, srcAs: number | null = null, dstAs: number | null = null;
+  for (const key in o) {
+    const v = o[key];
+    if (v === null || v === undefined) continue;
+    let bit: number;
+    switch (key) {
+      case "src": bit = F_SRC; src = fastAddress(parseAddress, v); if (!src) return undefined; break;
+      case "sourceIPv4Address": bit = F_SRC; src = fastAddress(parseIPv4, v); if (!src) return undefined; break;
+      case "sourceIPv6Address": bit = F_SRC; src = fastAddress(parseIPv6, v); if (!src) return undefined; break;
+      case "dst": bit = F_DST; dst = fastAddress(parseAddress, v); if (!dst) return undefined; break;
+      case "destinationIPv4Address": bit = F_DST; dst = fastAddress(parseIPv4, v); if (!dst) return undefined; break;
+      case "destinationIPv6Address": bit = F_DST; dst = fastAddress(parseIPv6, v); if (!dst) return undefined; break;
+      case "sport": case "sourceTransportPort": bit = F_SPORT; if (!isUint(v, 65535)) return undefined; sport = v; break;
+      case "dport": case "destinationTransportPort": bit = F_DPORT; if (!isUint(v, 65535)) return undefined; dport = v; break;
+      case "proto": case "protocolIdentifier": bit = F_PROTO; if (!isUint(v, 255)) return undefined; proto = v; break;
+      case "bytes": case "octetDeltaCount": bit = F_BYTES; if (!isCount(v)) return undefined; bytes = v; break;
+      case "packets": case "packetDeltaCount": bit = F_PACKETS; if (!isCount(v)) return undefined; packets = v; break;
+      case "start": case "flowStartMilliseconds": bit = F_START; if (!isTime(v)) return undefined; start = v; break;
+      case "end": case "flowEndMilliseconds": bit = F_END; if (!isTime(v)) return undefined; end = v; break;
+      case "ingressInterface": bit = F_IN; if (!isUint(v, UNSIGNED32_MAX)) return undefined; ingress = v; break;
+      case "egressInterface": bit = F_OUT; if (!isUint(v, UNSIGNED32_MAX)) return undefined; egress = v; break;
+      case "bgpSourceAsNumber": bit = F_SRC_AS; if (!isUint(v, UNSIGNED32_MAX)) return undefined; srcAs = v; break;
+      case "bgpDestinationAsNumber": bit = F_DST_AS; if (!isUint(v, UNSIGNED32_MAX)) return undefined; dstAs = v; break;
+      default: return undefined;
+    }
+    // A field under two names: leave the comparison and its message to the thorough path.
+    if (seen & bit) return undefined;
+    seen |= bit;
+  }
+  if ((seen & F_REQUIRED) !== F_REQUIRED) return undefined;
+  if (start !== null && end !== null && end < start) return undefined;
+  return {
+    src: src!,
+    dst: dst!,
+    sport,
+    dport,
+    proto,
+    bytes: BigInt(bytes),
+    packets: BigInt(packets),
+    start,
+    end,
+    ingressInterface: ingress,
+    egressInterface: egress,
+    srcAs,
+    dstAs,
+  };
+}
+
 // ---- issues --------------------------------------------------------------------------
 
 function editDistance(a: string, b: string): number {
@@ -436,10 +515,20 @@ function zodIssues(error: z.ZodError): FlowRecordIssue[] {
  *   // { ok: false, issues: [{ path: "bytes", message: "must be at least 1: …" }] }
  */
 export function parseFlowRecord(value: unknown): FlowRecordResult {
+  const fast = fastRecord(value);
+  return fast === undefined ? parseFlowRecordThoroughly(value) : { ok: true, record: fast };
+}
+
+/**
+ * The full path of parseFlowRecord: zod for structure, then conversion, with every issue
+ * named. Exported so tests can check that the fast path agrees with it.
+ */
+export function parseFlowRecordThoroughly(value: unknown): FlowRecordResult {
   const parsed = flowRecordWireSchema.safeParse(value);
   if (!parsed.success) return { ok: false, issues: zodIssues(parsed.error) };
+  const wire = parsed.data;
   const issues: FlowRecordIssue[] = [];
-  const record = toRecord(parsed.data, issues);
+  const record = toRecord(wire, issues);
   return record === undefined ? { ok: false, issues } : { ok: true, record };
 }
 

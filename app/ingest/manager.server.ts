@@ -1,9 +1,10 @@
-import type { InStatement, InValue, Row } from "@libsql/client";
+import type { InStatement } from "@libsql/client";
 import type { Db } from "~/db/client.server";
 import type { FlowRecord } from "~/flow/record";
 import { Reservoir, type Kept } from "~/sampling/reservoir";
 import type { UniformSource } from "~/sampling/uniform";
 import { toColumns, type KeptColumns } from "~/query/columns";
+import { decodeKeptRow, encodeKeptRows, KEPT_ROW_BYTES } from "./kept-codec";
 import { windowStartOf } from "./window";
 
 /** A kept flow record and its row number inside its reservoir (-1 until stored). */
@@ -60,6 +61,8 @@ interface Live {
   entered: Set<Kept<KeptFlow>>;
   evicted: number[];
   batchRecords: number;
+  /** True while a batch changed the sample in memory but has not committed yet. */
+  pending: boolean;
   /** Columns of the kept set, cached for queries until the next record enters. */
   columns?: { nextSeq: number; size: number; value: KeptColumns };
 }
@@ -73,12 +76,13 @@ export interface ManagerOptions {
   idempotencyTtlMs?: number;
 }
 
-const KEPT_COLUMNS =
-  "reservoir_id, seq, priority, weight, src, dst, sport, dport, proto, bytes, packets, start_ms, end_ms, ingress_interface, egress_interface, src_as, dst_as";
-const KEPT_COLUMN_COUNT = 17;
-// SQLite allows 32 766 bound parameters per statement; stay well below.
-const ROWS_PER_INSERT = 500;
-const SEQS_PER_DELETE = 1000;
+// The newcomers of one batch and reservoir arrive as one blob of fixed-size rows
+// (kept-codec.ts) with consecutive seqs, and SQL splits it: binding each field
+// separately costs about a microsecond per value in the driver.
+const INSERT_KEPT =
+  "WITH RECURSIVE row(i) AS (SELECT 0 UNION ALL SELECT i + 1 FROM row WHERE i + 1 < ?3) " +
+  `INSERT INTO kept_records (reservoir_id, seq, data) SELECT ?1, ?4 + i, substr(?2, i * ${KEPT_ROW_BYTES} + 1, ${KEPT_ROW_BYTES}) FROM row`;
+const DELETE_KEPT = "DELETE FROM kept_records WHERE reservoir_id = ?1 AND seq IN (SELECT value FROM json_each(?2))";
 const IDEMPOTENCY_SWEEP_EVERY_MS = 60_000;
 
 /**
@@ -94,6 +98,7 @@ const IDEMPOTENCY_SWEEP_EVERY_MS = 60_000;
  */
 export class ReservoirManager {
   private readonly live = new Map<string, Live>();
+  private readonly liveById = new Map<number, Live>();
   private queue: Promise<unknown> = Promise.resolve();
   private lastSweep = 0;
 
@@ -119,21 +124,25 @@ export class ReservoirManager {
    * is live and at the stored version (`nextSeq`), otherwise undefined.
    */
   liveColumns(reservoirId: number, nextSeq: number): KeptColumns | undefined {
-    for (const live of this.live.values()) {
-      if (live.id !== reservoirId) continue;
-      if (live.nextSeq !== nextSeq) return undefined;
-      if (!live.columns || live.columns.nextSeq !== live.nextSeq) {
-        const kept = live.reservoir.kept().map((e) => ({ weight: e.weight, record: e.item.record }));
-        live.columns = { nextSeq: live.nextSeq, size: kept.length, value: toColumns(kept) };
-      }
-      return live.columns.value;
+    const live = this.liveById.get(reservoirId);
+    // While a batch is being committed the memory runs ahead of SQLite: read from there instead.
+    if (!live || live.pending || live.nextSeq !== nextSeq) return undefined;
+    if (!live.columns || live.columns.nextSeq !== live.nextSeq) {
+      const kept = live.reservoir.kept().map((e) => ({ weight: e.weight, record: e.item.record }));
+      live.columns = { nextSeq: live.nextSeq, size: kept.length, value: toColumns(kept) };
     }
-    return undefined;
+    return live.columns.value;
   }
 
   /** Forgets every live reservoir (they reload from SQLite on next use). */
   clear(): void {
     this.live.clear();
+    this.liveById.clear();
+  }
+
+  private forget(live: Live): void {
+    this.live.delete(live.key);
+    this.liveById.delete(live.id);
   }
 
   private async apply(batch: IngestBatch): Promise<IngestAnswer> {
@@ -166,6 +175,7 @@ export class ReservoirManager {
     try {
       touched.forEach((live) => {
         const records = byWindow.get(live.windowStart)!;
+        live.pending = true;
         live.batchRecords = records.length;
         for (const record of records) {
           const entry = live.reservoir.offer({ seq: -1, record }, Number(byBytes ? record.bytes : record.packets));
@@ -205,7 +215,7 @@ export class ReservoirManager {
     } catch (error) {
       // The in-memory samples ran ahead of what was stored: forget them so they
       // reload from the last committed state.
-      for (const live of touched) this.live.delete(live.key);
+      for (const live of touched) this.forget(live);
       throw error;
     }
   }
@@ -214,25 +224,16 @@ export class ReservoirManager {
   private persistStatements(live: Live, now: number): InStatement[] {
     const statements: InStatement[] = [];
     const newcomers = [...live.entered];
-    let nextSeq = live.nextSeq;
-    for (const entry of newcomers) entry.item.seq = nextSeq++;
-    for (let i = 0; i < newcomers.length; i += ROWS_PER_INSERT) {
-      const chunk = newcomers.slice(i, i + ROWS_PER_INSERT);
-      const args: InValue[] = [];
-      for (const entry of chunk) args.push(...keptRowValues(live.id, entry));
-      const row = `(${new Array(KEPT_COLUMN_COUNT).fill("?").join(", ")})`;
-      statements.push({ sql: `INSERT INTO kept_records (${KEPT_COLUMNS}) VALUES ${new Array(chunk.length).fill(row).join(", ")}`, args });
+    const firstSeq = live.nextSeq;
+    newcomers.forEach((entry, i) => (entry.item.seq = firstSeq + i));
+    if (newcomers.length > 0) {
+      const rows = encodeKeptRows(newcomers.map((e) => ({ priority: e.priority, weight: e.weight, record: e.item.record })));
+      statements.push({ sql: INSERT_KEPT, args: [live.id, rows, newcomers.length, firstSeq] });
     }
-    for (let i = 0; i < live.evicted.length; i += SEQS_PER_DELETE) {
-      const chunk = live.evicted.slice(i, i + SEQS_PER_DELETE);
-      statements.push({
-        sql: `DELETE FROM kept_records WHERE reservoir_id = ? AND seq IN (${chunk.map(() => "?").join(", ")})`,
-        args: [live.id, ...chunk],
-      });
-    }
+    if (live.evicted.length > 0) statements.push({ sql: DELETE_KEPT, args: [live.id, JSON.stringify(live.evicted)] });
     statements.push({
       sql: "UPDATE reservoirs SET tau = ?, records = ?, bytes = ?, packets = ?, next_seq = ?, updated_at = ? WHERE id = ?",
-      args: [live.reservoir.tau, live.records, live.bytes.toString(), live.packets.toString(), nextSeq, now, live.id],
+      args: [live.reservoir.tau, live.records, live.bytes.toString(), live.packets.toString(), firstSeq + newcomers.length, now, live.id],
     });
     return statements;
   }
@@ -242,6 +243,7 @@ export class ReservoirManager {
     live.entered.clear();
     live.evicted.length = 0;
     live.batchRecords = 0;
+    live.pending = false;
     live.lastUsed = now;
   }
 
@@ -264,7 +266,7 @@ export class ReservoirManager {
     });
     const row = found.rows[0];
     const id = Number(row.id);
-    const kept = await client.execute({ sql: `SELECT ${KEPT_COLUMNS} FROM kept_records WHERE reservoir_id = ?`, args: [id] });
+    const kept = await client.execute({ sql: "SELECT seq, data FROM kept_records WHERE reservoir_id = ?", args: [id] });
     const live: Live = {
       id,
       key,
@@ -278,10 +280,19 @@ export class ReservoirManager {
       entered: new Set(),
       evicted: [],
       batchRecords: 0,
+      pending: false,
       reservoir: undefined as unknown as Reservoir<KeptFlow>,
     };
     live.reservoir = Reservoir.restore<KeptFlow>(
-      { k: Number(row.k), tau: Number(row.tau), seen: live.records, kept: kept.rows.map(keptFromRow) },
+      {
+        k: Number(row.k),
+        tau: Number(row.tau),
+        seen: live.records,
+        kept: kept.rows.map((r) => {
+          const { priority, weight, record } = decodeKeptRow(new Uint8Array(r.data as ArrayBuffer));
+          return { item: { seq: Number(r.seq), record }, weight, priority };
+        }),
+      },
       {
         uniform: this.options.uniform,
         onEvict: (evicted) => {
@@ -291,6 +302,7 @@ export class ReservoirManager {
       },
     );
     this.live.set(key, live);
+    this.liveById.set(id, live);
     return live;
   }
 
@@ -299,7 +311,7 @@ export class ReservoirManager {
     const max = this.options.maxLive ?? 4096;
     if (this.live.size <= max) return;
     const byAge = [...this.live.values()].sort((a, b) => a.lastUsed - b.lastUsed);
-    for (const live of byAge.slice(0, this.live.size - max)) this.live.delete(live.key);
+    for (const live of byAge.slice(0, this.live.size - max)) this.forget(live);
   }
 
   /** Frees idempotency keys older than the TTL so they can be used again; keeps the batch rows. */
@@ -312,52 +324,4 @@ export class ReservoirManager {
       args: [now - ttl],
     });
   }
-}
-
-function keptRowValues(reservoirId: number, kept: Kept<KeptFlow>): InValue[] {
-  const r = kept.item.record;
-  return [
-    reservoirId,
-    kept.item.seq,
-    kept.priority,
-    kept.weight,
-    r.src,
-    r.dst,
-    r.sport,
-    r.dport,
-    r.proto,
-    Number(r.bytes),
-    Number(r.packets),
-    r.start,
-    r.end,
-    r.ingressInterface,
-    r.egressInterface,
-    r.srcAs,
-    r.dstAs,
-  ];
-}
-
-function keptFromRow(row: Row): Kept<KeptFlow> {
-  const bytes = Number(row.bytes);
-  const packets = Number(row.packets);
-  const record: FlowRecord = {
-    src: new Uint8Array(row.src as ArrayBuffer),
-    dst: new Uint8Array(row.dst as ArrayBuffer),
-    sport: Number(row.sport),
-    dport: Number(row.dport),
-    proto: Number(row.proto),
-    bytes: BigInt(bytes),
-    packets: BigInt(packets),
-    start: nullableNumber(row.start_ms),
-    end: nullableNumber(row.end_ms),
-    ingressInterface: nullableNumber(row.ingress_interface),
-    egressInterface: nullableNumber(row.egress_interface),
-    srcAs: nullableNumber(row.src_as),
-    dstAs: nullableNumber(row.dst_as),
-  };
-  return { item: { seq: Number(row.seq), record }, weight: Number(row.weight), priority: Number(row.priority) };
-}
-
-function nullableNumber(value: unknown): number | null {
-  return value === null || value === undefined ? null : Number(value);
 }

@@ -8,6 +8,7 @@ import { createApiKey } from "~/auth/api-keys.server";
 import { closeDb, createDb, type Db } from "~/db/client.server";
 import { runMigrations } from "~/db/migrate.server";
 import { parseFlowRecord } from "~/flow/record";
+import { decodeKeptRow } from "~/ingest/kept-codec";
 import { windowStartOf } from "~/ingest/window";
 import { Reservoir } from "~/sampling/reservoir";
 import { seededUniform } from "~/sampling/uniform";
@@ -131,8 +132,9 @@ describe("crash safety", () => {
       const e = exact.get(w)!;
       expect({ records: Number(row.records), bytes: row.bytes, packets: row.packets }).toEqual({ records: e.records, bytes: e.bytes.toString(), packets: e.packets.toString() });
       expect(Number(row.tau)).toBe(expected.get(w)!.tau);
-      const kept = (await db.$client.execute({ sql: "SELECT priority FROM kept_records WHERE reservoir_id = ? ORDER BY priority DESC", args: [row.id] })).rows;
-      expect(kept.map((k) => Number(k.priority))).toEqual(expected.get(w)!.kept().map((k) => k.priority));
+      const kept = (await db.$client.execute({ sql: "SELECT data FROM kept_records WHERE reservoir_id = ?", args: [row.id] })).rows;
+      const priorities = kept.map((k) => decodeKeptRow(new Uint8Array(k.data as ArrayBuffer)).priority).sort((x, y) => y - x);
+      expect(priorities).toEqual(expected.get(w)!.kept().map((k) => k.priority));
     }
 
     // A retried batch after the restart is recognised as a duplicate.

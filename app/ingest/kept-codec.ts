@@ -1,0 +1,118 @@
+import type { FlowRecord } from "~/flow/record";
+import type { KeptColumns } from "~/query/columns";
+
+/**
+ * A kept record as one fixed-size binary row (little-endian), the form
+ * `kept_records.data` stores. One blob per batch and reservoir is far cheaper
+ * to hand to SQLite than seventeen bound values per record, and it keeps the
+ * unsigned 64-bit counters exact.
+ *
+ * Layout (bytes): 0 priority f64 · 8 weight f64 · 16 src[16] · 32 dst[16] ·
+ * 48 bytes u64 · 56 packets u64 · 64 start f64 (NaN = none) · 72 end f64 ·
+ * 80 sport u16 · 82 dport u16 · 84 proto u8 · 85 presence bits u8 (interfaces,
+ * AS numbers) · 88 ingress u32 · 92 egress u32 · 96 src AS u32 · 100 dst AS u32.
+ */
+export const KEPT_ROW_BYTES = 104;
+
+export interface KeptRowValue {
+  priority: number;
+  weight: number;
+  record: FlowRecord;
+}
+
+const INGRESS = 1;
+const EGRESS = 2;
+const SRC_AS = 4;
+const DST_AS = 8;
+
+/** Writes rows back to back. @example encodeKeptRows([row]).byteLength // 104 */
+export function encodeKeptRows(rows: readonly KeptRowValue[]): Uint8Array {
+  const out = new Uint8Array(rows.length * KEPT_ROW_BYTES);
+  const view = new DataView(out.buffer);
+  rows.forEach(({ priority, weight, record: r }, i) => {
+    const o = i * KEPT_ROW_BYTES;
+    view.setFloat64(o, priority, true);
+    view.setFloat64(o + 8, weight, true);
+    out.set(r.src, o + 16);
+    out.set(r.dst, o + 32);
+    view.setBigUint64(o + 48, r.bytes, true);
+    view.setBigUint64(o + 56, r.packets, true);
+    view.setFloat64(o + 64, r.start ?? Number.NaN, true);
+    view.setFloat64(o + 72, r.end ?? Number.NaN, true);
+    view.setUint16(o + 80, r.sport, true);
+    view.setUint16(o + 82, r.dport, true);
+    out[o + 84] = r.proto;
+    out[o + 85] =
+      (r.ingressInterface !== null ? INGRESS : 0) | (r.egressInterface !== null ? EGRESS : 0) | (r.srcAs !== null ? SRC_AS : 0) | (r.dstAs !== null ? DST_AS : 0);
+    view.setUint32(o + 88, r.ingressInterface ?? 0, true);
+    view.setUint32(o + 92, r.egressInterface ?? 0, true);
+    view.setUint32(o + 96, r.srcAs ?? 0, true);
+    view.setUint32(o + 100, r.dstAs ?? 0, true);
+  });
+  return out;
+}
+
+/** Reads the row at `offset` (a multiple of KEPT_ROW_BYTES) of `data`. */
+export function decodeKeptRow(data: Uint8Array, offset = 0): KeptRowValue {
+  if (data.byteLength < offset + KEPT_ROW_BYTES) throw new RangeError(`a kept row needs ${KEPT_ROW_BYTES} bytes, found ${data.byteLength - offset}`);
+  const view = new DataView(data.buffer, data.byteOffset + offset, KEPT_ROW_BYTES);
+  const flags = view.getUint8(85);
+  const time = (at: number) => {
+    const t = view.getFloat64(at, true);
+    return Number.isNaN(t) ? null : t;
+  };
+  return {
+    priority: view.getFloat64(0, true),
+    weight: view.getFloat64(8, true),
+    record: {
+      src: data.slice(offset + 16, offset + 32),
+      dst: data.slice(offset + 32, offset + 48),
+      bytes: view.getBigUint64(48, true),
+      packets: view.getBigUint64(56, true),
+      start: time(64),
+      end: time(72),
+      sport: view.getUint16(80, true),
+      dport: view.getUint16(82, true),
+      proto: view.getUint8(84),
+      ingressInterface: flags & INGRESS ? view.getUint32(88, true) : null,
+      egressInterface: flags & EGRESS ? view.getUint32(92, true) : null,
+      srcAs: flags & SRC_AS ? view.getUint32(96, true) : null,
+      dstAs: flags & DST_AS ? view.getUint32(100, true) : null,
+    },
+  };
+}
+
+/**
+ * Lays rows stored back to back (as group_concat of `kept_records.data` returns
+ * them) out in query columns, without building a record object per row.
+ */
+export function keptRowsToColumns(data: Uint8Array): KeptColumns {
+  if (data.byteLength % KEPT_ROW_BYTES !== 0) throw new RangeError(`kept rows: ${data.byteLength} bytes is not a multiple of ${KEPT_ROW_BYTES}`);
+  const n = data.byteLength / KEPT_ROW_BYTES;
+  const view = new DataView(data.buffer, data.byteOffset, data.byteLength);
+  const c: KeptColumns = {
+    length: n,
+    weight: new Float64Array(n),
+    bytes: new Float64Array(n),
+    packets: new Float64Array(n),
+    src: new Uint8Array(16 * n),
+    dst: new Uint8Array(16 * n),
+    sport: new Uint16Array(n),
+    dport: new Uint16Array(n),
+    proto: new Uint8Array(n),
+    start: new Float64Array(n),
+  };
+  for (let i = 0; i < n; i++) {
+    const o = i * KEPT_ROW_BYTES;
+    c.weight[i] = view.getFloat64(o + 8, true);
+    c.src.set(data.subarray(o + 16, o + 32), 16 * i);
+    c.dst.set(data.subarray(o + 32, o + 48), 16 * i);
+    c.bytes[i] = Number(view.getBigUint64(o + 48, true));
+    c.packets[i] = Number(view.getBigUint64(o + 56, true));
+    c.start[i] = view.getFloat64(o + 64, true);
+    c.sport[i] = view.getUint16(o + 80, true);
+    c.dport[i] = view.getUint16(o + 82, true);
+    c.proto[i] = data[o + 84];
+  }
+  return c;
+}

@@ -1,0 +1,191 @@
+import type { InStatement, InValue, Row } from "@libsql/client";
+import { ApiError } from "~/auth/api-keys.server";
+import type { Db } from "~/db/client.server";
+import type { ReservoirManager } from "~/ingest/manager.server";
+import { buildAnswer, type EstimateAnswer } from "./answer";
+import type { KeptColumns } from "./columns";
+import { keptRowsToColumns } from "~/ingest/kept-codec";
+import type { EstimateQuery } from "./request";
+import { compileQuery, scan, type ScanReservoir } from "./scan";
+import { SnapshotCache } from "./snapshot-cache";
+
+/** What an estimate needs of the server: the database and this node's live reservoirs. */
+export interface EstimateContext {
+  db: Db;
+  manager: Pick<ReservoirManager, "liveColumns">;
+}
+
+/** What an estimate needs of the tenant it runs for. */
+export interface EstimateTenant {
+  id: number;
+  weightAttribute: "bytes" | "packets";
+}
+
+/**
+ * Kept records one query may scan. Beyond this the columns alone take hundreds of megabytes
+ * and loading them from SQLite takes many seconds; a long range should use rolled-up windows.
+ */
+export const MAX_KEPT_PER_QUERY = 5_000_000;
+
+// SQLite allows 32 766 bound parameters per statement; stay well below.
+const IDS_PER_SELECT = 500;
+
+/** One cache per database, so two servers in one process never share reservoir ids. */
+const caches = new WeakMap<object, SnapshotCache>();
+
+function cacheFor(db: Db): SnapshotCache {
+  let cache = caches.get(db.$client);
+  if (!cache) caches.set(db.$client, (cache = new SnapshotCache()));
+  return cache;
+}
+
+interface ReservoirRow {
+  id: number;
+  collector: string;
+  windowStart: number;
+  k: number;
+  tau: number;
+  records: number;
+  bytes: bigint;
+  packets: bigint;
+  nextSeq: number;
+}
+
+/**
+ * Answers an estimate query for one tenant: the reservoirs of every node whose window starts
+ * in [from, to), of the named collectors (all when none are named), each an independent
+ * priority sample (Duffield, Lund, Thorup, J. ACM 54(6), 2007), scanned together.
+ * Authentication is the caller's business; `tenant` is trusted here and confines every
+ * SQL statement.
+ */
+export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, query: EstimateQuery): Promise<EstimateAnswer> {
+  const metric = query.metric ?? tenant.weightAttribute;
+  const rows = await reservoirsInRange(ctx.db, tenant.id, query);
+
+  const keptBound = rows.reduce((sum, r) => sum + Math.min(r.k, r.records), 0);
+  if (keptBound > MAX_KEPT_PER_QUERY) {
+    throw new ApiError(
+      422,
+      "query_too_large",
+      `The range holds up to ${keptBound} kept records in ${rows.length} reservoirs; one query scans at most ${MAX_KEPT_PER_QUERY}. Narrow from/to or name fewer collectors.`,
+      { details: [{ path: "to", message: "covers too many windows for one query" }] },
+    );
+  }
+
+  const reservoirs = await keptColumns(ctx, tenant.id, rows);
+  const result = scan(reservoirs, compileQuery(query, metric));
+
+  const windows = new Set<number>();
+  const collectors = new Set<string>();
+  const exact = { records: 0n, bytes: 0n, packets: 0n };
+  for (const r of rows) {
+    windows.add(r.windowStart);
+    collectors.add(r.collector);
+    exact.records += BigInt(r.records);
+    exact.bytes += r.bytes;
+    exact.packets += r.packets;
+  }
+  return buildAnswer({
+    metric,
+    result,
+    windows: windows.size,
+    collectors: [...collectors].sort(),
+    exact,
+    from: query.from,
+    to: query.to,
+  });
+}
+
+/** The reservoir rows with data in range: one statement on the (tenant_id, window_start) index. */
+async function reservoirsInRange(db: Db, tenantId: number, query: EstimateQuery): Promise<ReservoirRow[]> {
+  const names = query.where.collectors;
+  const args: InValue[] = [tenantId, query.from, query.to];
+  let byName = "";
+  if (names.length > 0) {
+    byName = ` AND c.name IN (${names.map(() => "?").join(", ")})`;
+    args.push(...names);
+  }
+  const found = await db.$client.execute({
+    sql:
+      "SELECT r.id, c.name, r.window_start, r.k, r.tau, r.records, r.bytes, r.packets, r.next_seq " +
+      "FROM reservoirs r JOIN collectors c ON c.id = r.collector_id AND c.tenant_id = r.tenant_id " +
+      // An empty row is left behind when a batch fails after creating its reservoir.
+      `WHERE r.tenant_id = ? AND r.window_start >= ? AND r.window_start < ? AND r.records > 0${byName} ` +
+      "ORDER BY r.window_start, c.name, r.id",
+    args,
+  });
+  return found.rows.map((row) => ({
+    id: Number(row[0]),
+    collector: String(row[1]),
+    windowStart: Number(row[2]),
+    k: Number(row[3]),
+    tau: Number(row[4]),
+    records: Number(row[5]),
+    // Decimal text: the sums of unsigned 64-bit counters can pass SQLite's signed INTEGER.
+    bytes: BigInt(String(row[6])),
+    packets: BigInt(String(row[7])),
+    nextSeq: Number(row[8]),
+  }));
+}
+
+/**
+ * Each reservoir's kept records as columns: from this node's memory when it holds the
+ * reservoir at the stored version, else from the snapshot cache, else from SQLite in one
+ * read transaction for all the rest.
+ */
+async function keptColumns(ctx: EstimateContext, tenantId: number, rows: ReservoirRow[]): Promise<ScanReservoir[]> {
+  const cache = cacheFor(ctx.db);
+  const out: ScanReservoir[] = [];
+  const missing: ReservoirRow[] = [];
+  for (const row of rows) {
+    const columns = ctx.manager.liveColumns(row.id, row.nextSeq) ?? cache.get(row.id, row.nextSeq);
+    if (columns) out.push({ tau: row.tau, collector: row.collector, windowStart: row.windowStart, columns });
+    else missing.push(row);
+  }
+  if (missing.length === 0) return out;
+
+  const statements: InStatement[] = [];
+  for (let i = 0; i < missing.length; i += IDS_PER_SELECT) {
+    const ids = missing.slice(i, i + IDS_PER_SELECT).map((r) => r.id);
+    statements.push({ sql: keptSelect(ids.length), args: [tenantId, ...ids] });
+  }
+  const results = await ctx.db.$client.batch(statements, "read");
+  const loaded = new Map<number, { tau: number; nextSeq: number; columns: KeptColumns }>();
+  for (const result of results) {
+    for (const row of result.rows) {
+      const id = Number(row[0]);
+      const snapshot = { nextSeq: Number(row[1]), tau: Number(row[2]), columns: columnsOfRow(row) };
+      loaded.set(id, snapshot);
+      cache.set(id, snapshot.nextSeq, snapshot.columns);
+    }
+  }
+  for (const row of missing) {
+    const snapshot = loaded.get(row.id);
+    // No kept rows: the reservoir went away (retention) between the two statements.
+    if (snapshot === undefined) continue;
+    out.push({ tau: snapshot.tau, collector: row.collector, windowStart: row.windowStart, columns: snapshot.columns });
+  }
+  return out;
+}
+
+/**
+ * One row per reservoir with all its kept rows (kept-codec.ts layout) concatenated in one
+ * blob: libsql builds a JavaScript object per result row, some 30 µs per kept record when
+ * each is its own row, against a plain byte copy this way. group_concat copies blob bytes
+ * as they are, NULs included, and CAST back to BLOB returns them unchanged. τ and next_seq
+ * come from the same statement, hence the same snapshot, so they belong to exactly these
+ * kept records even if a batch committed since the reservoir rows were read.
+ */
+function keptSelect(ids: number): string {
+  return (
+    "SELECT k.reservoir_id, r.next_seq, r.tau, CAST(group_concat(k.data, '') AS BLOB) " +
+    "FROM kept_records k JOIN reservoirs r ON r.id = k.reservoir_id " +
+    `WHERE r.tenant_id = ? AND k.reservoir_id IN (${new Array(ids).fill("?").join(", ")}) ` +
+    "GROUP BY k.reservoir_id"
+  );
+}
+
+/** The columns of one reservoir from its row of `keptSelect`. */
+function columnsOfRow(row: Row): KeptColumns {
+  return keptRowsToColumns(new Uint8Array(row[3] as ArrayBuffer));
+}

@@ -1,0 +1,404 @@
+/**
+ * The estimate request: what `POST /api/v1/estimate` takes as JSON and `GET /api/v1/estimate`
+ * takes as a query string, validated by one zod schema for both (and later for the console's
+ * Slice form). Parsing turns CIDR text into byte prefixes and port text into ranges, so the
+ * scan compiles the query without parsing anything again.
+ *
+ * Pure module: no I/O, usable in the browser and on the server.
+ */
+import { z } from "zod";
+import { parsePrefix, type Prefix } from "../net/prefix.ts";
+
+/** What the estimate sums: a record's bytes, its packets, or 1 per record (flows). */
+export const METRICS = ["bytes", "packets", "flows"] as const;
+export type Metric = (typeof METRICS)[number];
+
+export const GROUP_BY = ["src", "dst", "sport", "dport", "proto", "collector", "window"] as const;
+export type GroupByKind = (typeof GROUP_BY)[number];
+
+/** Group prefix lengths when none are given: a /24 per IPv4 network, a /64 per IPv6 subnet (RFC 4291 §2.5.4). */
+export const DEFAULT_PREFIX_LENGTH = { ipv4: 24, ipv6: 64 } as const;
+export const DEFAULT_TOP = 10;
+export const MAX_TOP = 1000;
+/** Longest time range of one query; a year and a bit, so "the same month last year" fits. */
+export const MAX_SPAN_DAYS = 400;
+/** Items per list: the scan tests every kept record against every prefix of a list. */
+export const MAX_LIST_ITEMS = 256;
+
+const DAY_MS = 86_400_000;
+
+/** An inclusive range of transport ports. */
+export interface PortRange {
+  low: number;
+  high: number;
+}
+
+export type GroupBy =
+  | { by: "src" | "dst"; prefixLength: { ipv4: number; ipv6: number } }
+  | { by: "sport" | "dport" | "proto" | "collector" | "window" };
+
+/** A request as sent in JSON. A list field also takes a single value. */
+export interface EstimateRequest {
+  /** ISO 8601 with a timezone (or a date, read as UTC midnight), or epoch milliseconds. */
+  from: string | number;
+  to: string | number;
+  where?: {
+    /** CIDR prefixes, IPv4 or IPv6; a bare address is a /32 or /128. */
+    src?: string | string[];
+    dst?: string | string[];
+    srcExclude?: string | string[];
+    dstExclude?: string | string[];
+    /** Ports, or ranges such as "1024-65535". */
+    sport?: number | string | (number | string)[];
+    dport?: number | string | (number | string)[];
+    /** IP protocol numbers (IANA): 6 TCP, 17 UDP, 1 ICMP, … */
+    proto?: number | number[];
+    /** Collector names. */
+    collectors?: string | string[];
+  };
+  metric?: Metric;
+  groupBy?: GroupByKind;
+  /** With groupBy src or dst: one length for both families (0–32), or one per family on its own scale. */
+  prefixLength?: number | { ipv4?: number; ipv6?: number };
+  top?: number;
+}
+
+/** A validated request, ready to compile. Times are epoch ms; windows whose start lies in [from, to) are covered. */
+export interface EstimateQuery {
+  from: number;
+  to: number;
+  where: {
+    src: Prefix[];
+    dst: Prefix[];
+    srcExclude: Prefix[];
+    dstExclude: Prefix[];
+    sport: PortRange[];
+    dport: PortRange[];
+    proto: number[];
+    collectors: string[];
+  };
+  /** null: the tenant's weight attribute. */
+  metric: Metric | null;
+  groupBy: GroupBy | null;
+  top: number;
+}
+
+/** One problem with a request: `path` names the field as the client wrote it. */
+export interface QueryIssue {
+  path: string;
+  message: string;
+}
+
+export type ParsedQuery = { ok: true; query: EstimateQuery } | { ok: false; message: string; details: QueryIssue[] };
+
+// ---- leaf values ---------------------------------------------------------------------------
+
+const TIME_FORM = "ISO 8601 with a timezone (e.g. 2024-05-01T02:00:00Z) or epoch milliseconds";
+const ISO_PATTERN =
+  /^(\d{4})-(\d{2})-(\d{2})(?:[Tt](\d{2}):(\d{2})(?::(\d{2})(?:[.,](\d{1,9}))?)?([Zz]|[+-]\d{2}:\d{2}))?$/;
+
+/** Epoch ms of ISO 8601 text (the RFC 3339 profile; a bare date is UTC midnight), or a reason. */
+function isoToMs(text: string): number | string {
+  const m = ISO_PATTERN.exec(text);
+  if (!m) {
+    return /^\d{4}-\d{2}-\d{2}[Tt]\d{2}:\d{2}(:\d{2}([.,]\d+)?)?$/.test(text)
+      ? `needs a timezone (Z or ±hh:mm): ${TIME_FORM}`
+      : `must be ${TIME_FORM}`;
+  }
+  const [year, month, day, hour = 0, minute = 0, second = 0] = m.slice(1, 7).map((v) => (v === undefined ? undefined : Number(v))) as number[];
+  if (year < 1970) return "is before 1970-01-01T00:00:00Z";
+  const ms = m[7] === undefined ? 0 : Math.floor(Number(`0.${m[7]}`) * 1000);
+  const local = Date.UTC(year, month - 1, day, hour, minute, second, ms);
+  const check = new Date(local);
+  // Date.UTC rolls 31 April over into 1 May; a round trip catches dates that do not exist.
+  if (
+    check.getUTCFullYear() !== year || check.getUTCMonth() !== month - 1 || check.getUTCDate() !== day ||
+    hour > 23 || minute > 59 || second > 59
+  ) {
+    return `is not a real date and time: ${TIME_FORM}`;
+  }
+  const zone = m[8];
+  let offsetMinutes = 0;
+  if (zone !== undefined && zone !== "Z" && zone !== "z") {
+    const hours = Number(zone.slice(1, 3));
+    const minutes = Number(zone.slice(4, 6));
+    if (hours > 23 || minutes > 59) return `has an impossible timezone offset: ${TIME_FORM}`;
+    offsetMinutes = (zone[0] === "+" ? 1 : -1) * (hours * 60 + minutes);
+  }
+  const at = local - offsetMinutes * 60_000;
+  return at < 0 ? "is before 1970-01-01T00:00:00Z" : at;
+}
+
+function fail(ctx: z.RefinementCtx, input: unknown, message: string, path: PropertyKey[] = []): never {
+  ctx.issues.push({ code: "custom", message, input, path });
+  return z.NEVER;
+}
+
+const time = z.unknown().transform((value, ctx): number => {
+  if (value === undefined || value === null) return fail(ctx, value, `is required: ${TIME_FORM}`);
+  if (typeof value === "number") {
+    return Number.isSafeInteger(value) && value >= 0 ? value : fail(ctx, value, `must be ${TIME_FORM} (a non-negative whole number)`);
+  }
+  if (typeof value !== "string") return fail(ctx, value, `must be ${TIME_FORM}`);
+  if (/^\d{1,16}$/.test(value)) return Number(value);
+  const ms = isoToMs(value);
+  return typeof ms === "number" ? ms : fail(ctx, value, ms);
+});
+
+const cidr = z.unknown().transform((value, ctx): Prefix => {
+  if (typeof value !== "string") return fail(ctx, value, "must be CIDR text such as 198.51.100.0/24 or 2001:db8::/32");
+  try {
+    return parsePrefix(value);
+  } catch (error) {
+    return fail(ctx, value, (error as Error).message);
+  }
+});
+
+const PORT_FORM = 'must be a port 0–65535 or a range such as "1024-65535"';
+
+const portRange = z.unknown().transform((value, ctx): PortRange => {
+  if (typeof value === "number") {
+    return Number.isInteger(value) && value >= 0 && value <= 65535 ? { low: value, high: value } : fail(ctx, value, PORT_FORM);
+  }
+  if (typeof value !== "string") return fail(ctx, value, PORT_FORM);
+  const m = /^(\d{1,5})(?:-(\d{1,5}))?$/.exec(value);
+  if (!m) return fail(ctx, value, PORT_FORM);
+  const low = Number(m[1]);
+  const high = m[2] === undefined ? low : Number(m[2]);
+  if (low > 65535 || high > 65535) return fail(ctx, value, `${PORT_FORM}; ports stop at 65535 (RFC 7012 unsigned16)`);
+  if (low > high) return fail(ctx, value, `is a range that ends before it starts; did you mean "${high}-${low}"?`);
+  return { low, high };
+});
+
+const protocol = z.int({ error: "must be an IP protocol number from 0 to 255 (IANA registry; 6 = TCP, 17 = UDP)" }).min(0).max(255);
+
+const collectorName = z
+  .string({ error: "must be a collector name" })
+  .min(1, { error: "must be a collector name, not empty" })
+  .max(64, { error: "must be a collector name of at most 64 characters" });
+
+/** A list field: an array, or one bare value standing for a list of one. */
+function list<T extends z.ZodType>(item: T, what: string) {
+  return z.preprocess(
+    (value) => (value === null ? undefined : typeof value === "string" || typeof value === "number" ? [value] : value),
+    z
+      .array(item, { error: `must be a list of ${what}` })
+      .max(MAX_LIST_ITEMS, { error: `lists at most ${MAX_LIST_ITEMS} items; use shorter prefixes or port ranges to cover more` })
+      .default([]),
+  );
+}
+
+const PREFIX_LENGTH_FORM =
+  'must be a prefix length 0–32 for both families, or { "ipv4": 0–32, "ipv6": 0–128 } (in a query string prefixLength=24 or prefixLength=ipv4:24,ipv6:48)';
+
+function lengthUpTo(value: unknown, max: number): value is number {
+  return typeof value === "number" && Number.isInteger(value) && value >= 0 && value <= max;
+}
+
+const prefixLengthSchema = z.unknown().transform((value, ctx): number | { ipv4?: number; ipv6?: number } => {
+  if (lengthUpTo(value, 32)) return value;
+  if (lengthUpTo(value, 128)) {
+    return fail(
+      ctx,
+      value,
+      `${value} is longer than an IPv4 address (32 bits); to group IPv6 by /${value} send { "ipv4": 24, "ipv6": ${value} } (in a query string prefixLength=ipv4:24,ipv6:${value})`,
+    );
+  }
+  if (typeof value !== "object" || value === null || Array.isArray(value)) return fail(ctx, value, PREFIX_LENGTH_FORM);
+  const given = value as Record<string, unknown>;
+  const unknown = Object.keys(given).filter((key) => key !== "ipv4" && key !== "ipv6");
+  if (unknown.length > 0) return fail(ctx, value, `${PREFIX_LENGTH_FORM}; ${unknown.join(", ")} is not a family`);
+  // Each family counts on its own scale (RFC 4632 for IPv4, RFC 4291 §2.3 for IPv6).
+  if (given.ipv4 !== undefined && !lengthUpTo(given.ipv4, 32)) return fail(ctx, value, "must be a prefix length from 0 to 32", ["ipv4"]);
+  if (given.ipv6 !== undefined && !lengthUpTo(given.ipv6, 128)) return fail(ctx, value, "must be a prefix length from 0 to 128", ["ipv6"]);
+  return { ipv4: given.ipv4 as number | undefined, ipv6: given.ipv6 as number | undefined };
+});
+
+// ---- the request -------------------------------------------------------------------------
+
+const whereSchema = z.strictObject(
+  {
+    src: list(cidr, "CIDR prefixes"),
+    dst: list(cidr, "CIDR prefixes"),
+    srcExclude: list(cidr, "CIDR prefixes"),
+    dstExclude: list(cidr, "CIDR prefixes"),
+    sport: list(portRange, "ports or port ranges"),
+    dport: list(portRange, "ports or port ranges"),
+    proto: list(protocol, "IP protocol numbers"),
+    collectors: list(collectorName, "collector names"),
+  },
+  { error: "must be an object of filters (src, dst, srcExclude, dstExclude, sport, dport, proto, collectors)" },
+);
+
+const WHERE_FIELDS = Object.keys(whereSchema.shape);
+
+const requestObject = z.strictObject(
+  {
+    from: time,
+    to: time,
+    where: whereSchema.optional(),
+    metric: z.enum(METRICS, { error: `must be one of ${METRICS.join(", ")}` }).optional(),
+    groupBy: z.enum(GROUP_BY, { error: `must be one of ${GROUP_BY.join(", ")}` }).optional(),
+    prefixLength: prefixLengthSchema.optional(),
+    top: z
+      .int({ error: `must be a whole number from 1 to ${MAX_TOP}` })
+      .min(1, { error: `must be a whole number from 1 to ${MAX_TOP}` })
+      .max(MAX_TOP, { error: `must be a whole number from 1 to ${MAX_TOP}` })
+      .optional(),
+  },
+  { error: "the request must be a JSON object with from, to and optional where, metric, groupBy, prefixLength, top" },
+);
+
+const REQUEST_FIELDS = Object.keys(requestObject.shape);
+
+/** The JSON request schema; its output is an `EstimateQuery`. */
+export const estimateRequestSchema = requestObject
+  .superRefine((q, ctx) => {
+    if (q.to <= q.from) {
+      ctx.addIssue({ code: "custom", path: ["to"], message: `must be after from (${new Date(q.from).toISOString()})` });
+    } else if (q.to - q.from > MAX_SPAN_DAYS * DAY_MS) {
+      const days = Math.ceil((q.to - q.from) / DAY_MS);
+      ctx.addIssue({
+        code: "custom",
+        path: ["to"],
+        message: `the range spans ${days} days; one query covers at most ${MAX_SPAN_DAYS} days, so split it into several`,
+      });
+    }
+    if (q.prefixLength !== undefined && q.groupBy !== "src" && q.groupBy !== "dst") {
+      ctx.addIssue({ code: "custom", path: ["prefixLength"], message: "applies only with groupBy src or dst" });
+    }
+  })
+  .transform((q): EstimateQuery => {
+    const where = q.where ?? whereSchema.parse({});
+    let groupBy: GroupBy | null = null;
+    if (q.groupBy === "src" || q.groupBy === "dst") {
+      const given = q.prefixLength;
+      const prefixLength =
+        typeof given === "number"
+          ? { ipv4: given, ipv6: given }
+          : { ipv4: given?.ipv4 ?? DEFAULT_PREFIX_LENGTH.ipv4, ipv6: given?.ipv6 ?? DEFAULT_PREFIX_LENGTH.ipv6 };
+      groupBy = { by: q.groupBy, prefixLength };
+    } else if (q.groupBy !== undefined) {
+      groupBy = { by: q.groupBy };
+    }
+    return { from: q.from, to: q.to, where, metric: q.metric ?? null, groupBy, top: q.top ?? DEFAULT_TOP };
+  });
+
+// ---- issues --------------------------------------------------------------------------------
+
+type Source = "json" | "query";
+
+function formatPath(path: readonly PropertyKey[], source: Source): string {
+  // In a query string the filters stand at the top level, so name them as the client wrote them.
+  const segments = source === "query" && path[0] === "where" ? path.slice(1) : path;
+  let text = "";
+  for (const segment of segments) {
+    if (typeof segment === "number") text += `[${segment}]`;
+    else text += text === "" ? String(segment) : `.${String(segment)}`;
+  }
+  return text;
+}
+
+function unknownKeyMessage(key: string, parent: readonly PropertyKey[], source: Source): string {
+  if (source === "json" && parent.length === 0 && WHERE_FIELDS.includes(key)) {
+    return `is a filter: put it inside "where", e.g. { "where": { "${key}": … } }`;
+  }
+  if (parent[0] === "where") return `is not a known filter (known: ${WHERE_FIELDS.join(", ")})`;
+  const known = source === "query" ? [...QUERY_SCALARS, ...WHERE_FIELDS] : REQUEST_FIELDS;
+  return `is not a known ${source === "query" ? "parameter" : "field"} (known: ${known.join(", ")})`;
+}
+
+function toIssues(error: z.ZodError, source: Source): QueryIssue[] {
+  const out: QueryIssue[] = [];
+  for (const issue of error.issues) {
+    if (issue.code === "unrecognized_keys") {
+      for (const key of issue.keys) {
+        const shown = key.length > 64 ? `${key.slice(0, 64)}…` : key;
+        out.push({ path: formatPath([...issue.path, shown], source), message: unknownKeyMessage(key, issue.path, source) });
+      }
+      continue;
+    }
+    out.push({ path: formatPath(issue.path, source), message: issue.message });
+  }
+  return out;
+}
+
+function result(parsed: ReturnType<typeof estimateRequestSchema.safeParse>, source: Source, extra: QueryIssue[] = []): ParsedQuery {
+  if (parsed.success && extra.length === 0) return { ok: true, query: parsed.data };
+  const details = [...extra, ...(parsed.success ? [] : toIssues(parsed.error, source))];
+  const first = details[0];
+  const more = details.length > 1 ? ` (and ${details.length - 1} more)` : "";
+  const end = more === "" && /[.?!]$/.test(first.message) ? "" : ".";
+  const message = `Invalid query: ${first.path === "" ? "" : `${first.path}: `}${first.message}${more}${end}`;
+  return { ok: false, message, details };
+}
+
+/**
+ * Validates a JSON request body.
+ *
+ * @example parseEstimateRequest({ from: "2024-05-01T02:00:00Z", to: "2024-05-01T02:40:00Z", where: { src: ["198.51.100.0/25"], dport: [443] } })
+ *   // { ok: true, query: { from: 1714528800000, to: 1714531200000, where: { src: [198.51.100.0/25], dport: [{ low: 443, high: 443 }], … }, metric: null, groupBy: null, top: 10 } }
+ * @example parseEstimateRequest({ from: 0, to: 1, where: { src: "198.51.100.7/24" } })
+ *   // { ok: false, details: [{ path: "where.src[0]", message: "198.51.100.7/24 has host bits set; did you mean 198.51.100.0/24?" }], … }
+ */
+export function parseEstimateRequest(body: unknown): ParsedQuery {
+  return result(estimateRequestSchema.safeParse(body), "json");
+}
+
+// ---- the query-string form ------------------------------------------------------------------
+
+const QUERY_SCALARS = ["from", "to", "metric", "groupBy", "prefixLength", "top"] as const;
+const NUMERIC_LISTS = new Set(["proto"]);
+
+function digitsToNumber(text: string): string | number {
+  return /^\d{1,16}$/.test(text) ? Number(text) : text;
+}
+
+/** `prefixLength=24` or `prefixLength=ipv4:24,ipv6:48`; anything else goes on as text for the schema to refuse. */
+function prefixLengthFromText(text: string): unknown {
+  if (/^\d{1,3}$/.test(text)) return Number(text);
+  const out: Record<string, number> = {};
+  for (const part of text.split(",")) {
+    const m = /^\s*(ipv4|ipv6)\s*:\s*(\d{1,3})\s*$/.exec(part);
+    if (!m || m[1] in out) return text;
+    out[m[1]] = Number(m[2]);
+  }
+  return out;
+}
+
+/**
+ * Validates the query-string form: the same fields, with the filters at the top level and
+ * lists comma-separated or repeated (`src=198.51.100.0/24,2001:db8::/32&dport=443`).
+ * Paths in the issues name the parameters as written (`src[1]`, not `where.src[1]`).
+ *
+ * @example parseEstimateSearchParams(new URLSearchParams("from=2024-05-01&to=2024-05-02&dport=443,8443&groupBy=src"))
+ *   // { ok: true, query: { …, where: { dport: [{ low: 443, high: 443 }, { low: 8443, high: 8443 }], … }, groupBy: { by: "src", prefixLength: { ipv4: 24, ipv6: 64 } } } }
+ */
+export function parseEstimateSearchParams(params: URLSearchParams): ParsedQuery {
+  const body: Record<string, unknown> = {};
+  const where: Record<string, unknown[]> = {};
+  const extra: QueryIssue[] = [];
+  for (const name of new Set(params.keys())) {
+    const values = params.getAll(name);
+    if ((QUERY_SCALARS as readonly string[]).includes(name)) {
+      if (values.length > 1 && name !== "prefixLength") {
+        extra.push({ path: name, message: `is given ${values.length} times; give it once` });
+      }
+      const text = name === "prefixLength" ? values.join(",") : values[0];
+      body[name] =
+        name === "top" || name === "from" || name === "to" ? digitsToNumber(text) : name === "prefixLength" ? prefixLengthFromText(text) : text;
+    } else if (WHERE_FIELDS.includes(name)) {
+      const items = values.flatMap((v) => v.split(",")).map((v) => v.trim());
+      const empty = items.indexOf("");
+      if (empty >= 0) {
+        extra.push({ path: `${name}[${empty}]`, message: "is empty; separate items with single commas" });
+        continue;
+      }
+      where[name] = NUMERIC_LISTS.has(name) ? items.map(digitsToNumber) : items;
+    } else {
+      extra.push({ path: name, message: unknownKeyMessage(name, [], "query") });
+    }
+  }
+  if (Object.keys(where).length > 0) body.where = where;
+  return result(estimateRequestSchema.safeParse(body), "query", extra);
+}

@@ -1,0 +1,100 @@
+// Ingest over HTTP on loopback against (a) the ceiling of parsing and
+// validating the same bodies and (b) keeping every record in a plain table.
+import { mkdtempSync, rmSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { join } from "node:path";
+import { createApiKey } from "~/auth/api-keys.server";
+import { closeDb, createDb } from "~/db/client.server";
+import { runMigrations } from "~/db/migrate.server";
+import { parseFlowBatch, type FlowRecord } from "~/flow/record";
+import { readRecordValues } from "~/ingest/body.server";
+import { createTenant, ensureCollector } from "~/tenants.server";
+import { benchRecords, toNdjsonLine } from "./data";
+import { insertAll, openKeepAll } from "./keep-all";
+import { databaseBytes, startChildServer } from "./util";
+
+export interface IngestBench {
+  records: number;
+  batch: number;
+  httpRecordsPerSecond: number;
+  ceilingRecordsPerSecond: number;
+  keepAllRecordsPerSecond: number;
+  weirBytes: number;
+  keepAllBytes: number;
+  windows: number;
+}
+
+const LIMITS = { maxBodyBytes: 64 * 1024 * 1024, maxRecords: 100_000 };
+
+export async function benchIngest(total = 2_000_000, batch = 5_000, concurrency = 2): Promise<IngestBench> {
+  const dir = mkdtempSync(join(tmpdir(), "weir-bench-ingest-"));
+  try {
+    const weirPath = join(dir, "weir.db");
+    const db = await createDb(`file:${weirPath}`);
+    await runMigrations(db);
+    const tenant = await createTenant(db, { slug: "bench", sampleSize: 1024, windowSeconds: 300 });
+    const collector = await ensureCollector(db, tenant.id, "edge-1");
+    const { key } = await createApiKey(db, { tenantId: tenant.id, collectorId: collector.id, scopes: "ingest" });
+
+    // One hour of traffic ending now (12 five-minute windows, ~167k records each), in time order.
+    const now = Date.now();
+    const records: FlowRecord[] = [...benchRecords(total, now - 3600_000, now, 2026)];
+    const bodies: string[] = [];
+    for (let i = 0; i < total; i += batch) bodies.push(records.slice(i, i + batch).map(toNdjsonLine).join("\n"));
+
+    // Ceiling: the route's own body reading, parsing and validation, nothing else.
+    const ceilingStart = performance.now();
+    for (const body of bodies) {
+      const request = new Request("http://bench.invalid/api/v1/flows", { method: "POST", headers: { "content-type": "application/x-ndjson" }, body });
+      const parsed = parseFlowBatch(await readRecordValues(request, LIMITS));
+      if (!parsed.ok) throw new Error("benchmark data failed validation");
+    }
+    const ceilingSeconds = (performance.now() - ceilingStart) / 1000;
+
+    closeDb(db);
+    const server = await startChildServer(`file:${weirPath}`);
+    let next = 0;
+    const httpStart = performance.now();
+    await Promise.all(
+      Array.from({ length: concurrency }, async () => {
+        while (next < bodies.length) {
+          const body = bodies[next++];
+          const res = await fetch(`${server.url}/api/v1/flows`, {
+            method: "POST",
+            headers: { authorization: `Bearer ${key}`, "content-type": "application/x-ndjson" },
+            body,
+          });
+          if (res.status !== 200) throw new Error(`ingest answered ${res.status}: ${await res.text()}`);
+          await res.arrayBuffer();
+        }
+      }),
+    );
+    const httpSeconds = (performance.now() - httpStart) / 1000;
+    await server.stop();
+
+    const keepAll = await openKeepAll(join(dir, "keep-all.db"));
+    const keepStart = performance.now();
+    for (let i = 0; i < total; i += batch) await insertAll(keepAll, records.slice(i, i + batch));
+    const keepSeconds = (performance.now() - keepStart) / 1000;
+    await keepAll.execute("PRAGMA wal_checkpoint(TRUNCATE)");
+    keepAll.close();
+
+    const check = await createDb(`file:${weirPath}`);
+    await check.$client.execute("PRAGMA wal_checkpoint(TRUNCATE)");
+    const windows = Number((await check.$client.execute("SELECT COUNT(*) AS n FROM reservoirs")).rows[0].n);
+    closeDb(check);
+
+    return {
+      records: total,
+      batch,
+      httpRecordsPerSecond: total / httpSeconds,
+      ceilingRecordsPerSecond: total / ceilingSeconds,
+      keepAllRecordsPerSecond: total / keepSeconds,
+      weirBytes: databaseBytes(weirPath),
+      keepAllBytes: databaseBytes(join(dir, "keep-all.db")),
+      windows,
+    };
+  } finally {
+    rmSync(dir, { recursive: true, force: true });
+  }
+}

@@ -1,0 +1,66 @@
+// The reference a query is checked against: plain predicates over whole records, written from
+// the request's documented meaning (include lists OR within a field and AND across fields,
+// excludes remove matches, a port matches any listed port or range) with the prefix match of
+// RFC 4632 §3.1 (`prefixContains`). Nothing here shares code with the scan.
+import { isIPv4Mapped } from "~/net/address";
+import { coveringPrefix, formatPrefix, prefixContains, type Prefix } from "~/net/prefix";
+import type { EstimateQuery, Metric, PortRange } from "~/query/request";
+
+export interface PlainRecord {
+  src: Uint8Array;
+  dst: Uint8Array;
+  sport: number;
+  dport: number;
+  proto: number;
+  bytes: number;
+  packets: number;
+}
+
+function inPorts(port: number, ranges: PortRange[]): boolean {
+  return ranges.length === 0 || ranges.some((r) => port >= r.low && port <= r.high);
+}
+
+function anyContains(prefixes: Prefix[], address: Uint8Array): boolean {
+  return prefixes.some((p) => prefixContains(p, address));
+}
+
+/** Whether a record passes the query's address, port and protocol filters. */
+export function matchesWhere(q: EstimateQuery, r: PlainRecord): boolean {
+  const w = q.where;
+  return (
+    (w.src.length === 0 || anyContains(w.src, r.src)) &&
+    (w.dst.length === 0 || anyContains(w.dst, r.dst)) &&
+    !anyContains(w.srcExclude, r.src) &&
+    !anyContains(w.dstExclude, r.dst) &&
+    inPorts(r.sport, w.sport) &&
+    inPorts(r.dport, w.dport) &&
+    (w.proto.length === 0 || w.proto.includes(r.proto))
+  );
+}
+
+/** A record's value of the metric: its bytes, its packets, or 1 for flows. */
+export function metricValue(metric: Metric): (r: PlainRecord) => number {
+  return metric === "bytes" ? (r) => r.bytes : metric === "packets" ? (r) => r.packets : () => 1;
+}
+
+/** The group key of a record as the API documents it. */
+export function groupKey(q: EstimateQuery, r: PlainRecord, collector: string, windowStart: number): string {
+  const g = q.groupBy!;
+  switch (g.by) {
+    case "src":
+    case "dst": {
+      const address = g.by === "src" ? r.src : r.dst;
+      return formatPrefix(coveringPrefix(address, isIPv4Mapped(address) ? g.prefixLength.ipv4 : g.prefixLength.ipv6));
+    }
+    case "sport":
+      return String(r.sport);
+    case "dport":
+      return String(r.dport);
+    case "proto":
+      return String(r.proto);
+    case "collector":
+      return collector;
+    case "window":
+      return new Date(windowStart).toISOString();
+  }
+}
