@@ -1,0 +1,283 @@
+// `npm run admin -- <command>`: creates tenants and API keys from a shell, for bootstrapping
+// a deployment and for scripts. Input errors print one line on stderr and exit 2, so a
+// script can tell "you asked for something wrong" (2) from "something broke" (1).
+import { parseArgs, type ParseArgsConfig } from "node:util";
+import { and, asc, count, eq } from "drizzle-orm";
+import { z } from "zod";
+import { createApiKey, revokeApiKey, scopesFor } from "~/auth/api-keys.server";
+import { closeDefaultDb, getDb, type Db } from "~/db/client.server";
+import { runMigrations } from "~/db/migrate.server";
+import { apiKeys, collectors, tenants } from "~/db/schema.server";
+import { collectorNameSchema, createTenant, ensureCollector, findTenantBySlug, listTenants, newTenantSchema } from "~/tenants.server";
+
+const USAGE = `Usage: npm run admin -- <command> [options]
+
+Commands:
+  tenant create <slug> [--name TEXT] [--sample-size N] [--window-seconds S]
+                       [--weight bytes|packets] [--retention-days D]
+  tenant list
+  key create <tenant> <collector> [--scope ingest|query|both]
+                       Creates the collector when it is new. The key is shown once,
+                       alone on the last line of stdout; only its SHA-256 is stored.
+  key list <tenant>
+  key revoke <prefix>  The prefix is the first part of a key, e.g. weir_1a2b3c4d.
+
+Defaults: --sample-size 1024, --window-seconds 300 (one of 60, 300, 900, 3600),
+--weight bytes, --retention-days 30, --scope ingest.
+The database is DATABASE_URL (default file:./data/weir.db), migrated first.
+Exit status: 0 done, 2 bad command or input, 1 anything else.
+
+Example:
+  KEY=$(npm run -s admin -- key create riverline pop-north | tail -1)`;
+
+/** A mistake in what was asked: one line on stderr, exit 2. */
+class UsageError extends Error {}
+
+type Values = Record<string, string | boolean | undefined>;
+
+interface Command {
+  args: string[];
+  options: NonNullable<ParseArgsConfig["options"]>;
+  run(db: Db, args: string[], values: Values): Promise<void>;
+}
+
+const COMMANDS: Record<string, Command> = {
+  "tenant create": {
+    args: ["slug"],
+    options: {
+      name: { type: "string" },
+      "sample-size": { type: "string" },
+      "window-seconds": { type: "string" },
+      weight: { type: "string" },
+      "retention-days": { type: "string" },
+    },
+    run: tenantCreate,
+  },
+  "tenant list": { args: [], options: {}, run: tenantList },
+  "key create": { args: ["tenant", "collector"], options: { scope: { type: "string" } }, run: keyCreate },
+  "key list": { args: ["tenant"], options: {}, run: keyList },
+  "key revoke": { args: ["prefix"], options: {}, run: keyRevoke },
+};
+
+// ---- tenants -----------------------------------------------------------------------------
+
+// The flag a person typed for each field of newTenantSchema, so errors name what they can fix.
+const TENANT_FLAGS: Record<string, string> = {
+  slug: "<slug>",
+  name: "--name",
+  sampleSize: "--sample-size",
+  windowSeconds: "--window-seconds",
+  weightAttribute: "--weight",
+  retentionDays: "--retention-days",
+};
+
+function wholeNumber(values: Values, flag: string): number | undefined {
+  const text = values[flag];
+  if (typeof text !== "string") return undefined;
+  if (!/^\d{1,9}$/.test(text)) throw new UsageError(`--${flag} must be a whole number, got '${text}'`);
+  return Number(text);
+}
+
+function firstIssue(error: z.ZodError, flags: Record<string, string>): string {
+  const issue = error.issues[0];
+  const field = String(issue.path[0] ?? "");
+  return `${flags[field] ?? field}: ${issue.message}`;
+}
+
+async function tenantCreate(db: Db, [slug]: string[], values: Values): Promise<void> {
+  const parsed = newTenantSchema.safeParse({
+    slug,
+    name: values.name,
+    sampleSize: wholeNumber(values, "sample-size"),
+    windowSeconds: wholeNumber(values, "window-seconds"),
+    weightAttribute: values.weight,
+    retentionDays: wholeNumber(values, "retention-days"),
+  });
+  if (!parsed.success) throw new UsageError(firstIssue(parsed.error, TENANT_FLAGS));
+  if (await findTenantBySlug(db, slug)) throw new UsageError(`tenant '${slug}' already exists`);
+  const t = await createTenant(db, parsed.data);
+  console.log(
+    `Created tenant ${t.slug} ("${t.name}"): k ${t.sampleSize}, ${formatWindow(t.windowSeconds)} windows, ` +
+      `weight ${t.weightAttribute}, retention ${t.retentionDays} d.`,
+  );
+}
+
+async function tenantList(db: Db): Promise<void> {
+  const all = await listTenants(db);
+  if (all.length === 0) {
+    console.log("No tenants yet. Create one with: npm run admin -- tenant create <slug>");
+    return;
+  }
+  const counts = await db.select({ tenantId: collectors.tenantId, n: count() }).from(collectors).groupBy(collectors.tenantId);
+  const collectorsOf = new Map(counts.map((c) => [c.tenantId, c.n]));
+  printTable(
+    ["SLUG", "NAME", "K", "WINDOW", "WEIGHT", "RETENTION", "COLLECTORS"],
+    all.map((t) => [
+      t.slug,
+      t.name,
+      String(t.sampleSize),
+      formatWindow(t.windowSeconds),
+      t.weightAttribute,
+      `${t.retentionDays} d`,
+      String(collectorsOf.get(t.id) ?? 0),
+    ]),
+  );
+}
+
+// ---- keys --------------------------------------------------------------------------------
+
+const scopeSchema = z.enum(["ingest", "query", "both"]);
+
+async function requireTenant(db: Db, slug: string) {
+  const tenant = await findTenantBySlug(db, slug);
+  if (!tenant) throw new UsageError(`no tenant '${slug}' (see: npm run admin -- tenant list)`);
+  return tenant;
+}
+
+async function keyCreate(db: Db, [slug, collectorName]: string[], values: Values): Promise<void> {
+  const scope = scopeSchema.safeParse(values.scope ?? "ingest");
+  if (!scope.success) throw new UsageError(`--scope must be ingest, query or both, got '${String(values.scope)}'`);
+  const name = collectorNameSchema.safeParse(collectorName);
+  if (!name.success) throw new UsageError(`<collector>: ${name.error.issues[0].message}`);
+  const tenant = await requireTenant(db, slug);
+  const [existing] = await db
+    .select({ id: collectors.id })
+    .from(collectors)
+    .where(and(eq(collectors.tenantId, tenant.id), eq(collectors.name, collectorName)));
+  const collector = await ensureCollector(db, tenant.id, collectorName);
+  const created = await createApiKey(db, { tenantId: tenant.id, collectorId: collector.id, scopes: scopesFor(scope.data), createdBy: "admin cli" });
+  // The description goes to stderr so stdout holds the key alone: `$(… | tail -1)` and
+  // plain `$(…)` both capture just the key.
+  console.error(
+    `Created ${scope.data === "both" ? "ingest+query" : scope.data} key ${created.prefix} for ${tenant.slug}/${collector.name}` +
+      `${existing ? "" : " (new collector)"}. It is shown once; store it now.`,
+  );
+  console.log(created.key);
+}
+
+async function keyList(db: Db, [slug]: string[]): Promise<void> {
+  const tenant = await requireTenant(db, slug);
+  const rows = await db
+    .select({
+      prefix: apiKeys.prefix,
+      scopes: apiKeys.scopes,
+      collector: collectors.name,
+      createdAt: apiKeys.createdAt,
+      lastUsedAt: apiKeys.lastUsedAt,
+      revokedAt: apiKeys.revokedAt,
+    })
+    .from(apiKeys)
+    .innerJoin(collectors, eq(collectors.id, apiKeys.collectorId))
+    .where(eq(apiKeys.tenantId, tenant.id))
+    .orderBy(asc(apiKeys.createdAt), asc(apiKeys.id));
+  if (rows.length === 0) {
+    console.log(`No keys for ${tenant.slug}. Create one with: npm run admin -- key create ${tenant.slug} <collector>`);
+    return;
+  }
+  printTable(
+    ["PREFIX", "SCOPE", "COLLECTOR", "CREATED", "LAST USED", "REVOKED"],
+    rows.map((k) => [
+      k.prefix,
+      k.scopes === "ingest,query" ? "ingest+query" : k.scopes,
+      k.collector,
+      formatTime(k.createdAt),
+      k.lastUsedAt === null ? "never" : formatTime(k.lastUsedAt),
+      k.revokedAt === null ? "-" : formatTime(k.revokedAt),
+    ]),
+  );
+}
+
+async function keyRevoke(db: Db, [prefix]: string[]): Promise<void> {
+  const wholeKey = /^(weir_[0-9a-f]{8})_/.exec(prefix);
+  // Never echo a whole key back: terminals and CI logs keep what is printed.
+  if (wholeKey) throw new UsageError(`give only the key's prefix (${wholeKey[1]}), not the whole key`);
+  if (!/^weir_[0-9a-f]{8}$/.test(prefix)) {
+    throw new UsageError(`<prefix> must look like weir_1a2b3c4d (the first part of a key, as 'key list' shows), got '${prefix}'`);
+  }
+  const [key] = await db
+    .select({ revokedAt: apiKeys.revokedAt, tenant: tenants.slug, collector: collectors.name })
+    .from(apiKeys)
+    .innerJoin(tenants, eq(tenants.id, apiKeys.tenantId))
+    .innerJoin(collectors, eq(collectors.id, apiKeys.collectorId))
+    .where(eq(apiKeys.prefix, prefix));
+  if (!key) throw new UsageError(`no key with prefix ${prefix}`);
+  if (key.revokedAt !== null || !(await revokeApiKey(db, prefix))) {
+    throw new UsageError(`key ${prefix} (${key.tenant}/${key.collector}) is already revoked`);
+  }
+  console.log(`Revoked key ${prefix} (${key.tenant}/${key.collector}); requests with it now answer 401.`);
+}
+
+// ---- output ------------------------------------------------------------------------------
+
+function formatWindow(seconds: number): string {
+  return seconds % 60 === 0 ? `${seconds / 60} min` : `${seconds} s`;
+}
+
+/** UTC to the minute: enough to tell keys apart, short enough for a table. */
+function formatTime(ms: number): string {
+  return `${new Date(ms).toISOString().slice(0, 16).replace("T", " ")}Z`;
+}
+
+function printTable(headers: string[], rows: string[][]): void {
+  const widths = headers.map((h, i) => Math.max(h.length, ...rows.map((r) => r[i].length)));
+  for (const line of [headers, ...rows]) {
+    console.log(line.map((cell, i) => (i === line.length - 1 ? cell : cell.padEnd(widths[i]))).join("  "));
+  }
+}
+
+// ---- main --------------------------------------------------------------------------------
+
+async function main(argv: string[]): Promise<number> {
+  if (argv.length === 0) {
+    console.error(USAGE);
+    return 2;
+  }
+  if (argv[0] === "--help" || argv[0] === "-h" || argv[0] === "help") {
+    console.log(USAGE);
+    return 0;
+  }
+  const name = argv.slice(0, 2).join(" ");
+  const command = COMMANDS[name];
+  if (!command) {
+    console.error(`admin: unknown command '${name}'\n\n${USAGE}`);
+    return 2;
+  }
+  try {
+    let parsed;
+    try {
+      parsed = parseArgs({ args: argv.slice(2), options: { ...command.options, help: { type: "boolean", short: "h" } }, allowPositionals: true, strict: true });
+    } catch (error) {
+      // Node's own messages run long (and differ between versions); the option is what matters.
+      const code = (error as { code?: string }).code;
+      const option = /'([^']+)'/.exec((error as Error).message)?.[1];
+      if (code === "ERR_PARSE_ARGS_UNKNOWN_OPTION" && option) throw new UsageError(`'${name}' has no option ${option}`);
+      throw new UsageError((error as Error).message);
+    }
+    if (parsed.values.help) {
+      console.log(USAGE);
+      return 0;
+    }
+    const args = parsed.positionals;
+    if (args.length < command.args.length) {
+      throw new UsageError(`'${name}' needs ${command.args.map((a) => `<${a}>`).join(" ")}`);
+    }
+    if (args.length > command.args.length) throw new UsageError(`'${name}': unexpected argument '${args[command.args.length]}'`);
+    const db = await getDb();
+    await runMigrations(db);
+    await command.run(db, args, parsed.values as Values);
+    return 0;
+  } catch (error) {
+    if (!(error instanceof UsageError)) throw error;
+    console.error(`admin: ${error.message}`);
+    return 2;
+  } finally {
+    await closeDefaultDb();
+  }
+}
+
+try {
+  process.exitCode = await main(process.argv.slice(2));
+} catch (error) {
+  console.error("admin: failed:", error);
+  process.exitCode = 1;
+}

@@ -1,0 +1,77 @@
+// `npm run demo`: Weir with the INVENTED demo scenario, in one command. Migrates
+// DATABASE_URL, seeds the demo tenants when they are missing (`seed.ts`), then serves the
+// app in development mode (Vite middleware, no build needed) and prints the public DEMO
+// keys with copy-pasteable requests. Demo data only: refuses NODE_ENV=production.
+import { closeDb, createDb } from "~/db/client.server";
+import { runMigrations } from "~/db/migrate.server";
+import { loadEnv } from "~/env.server";
+import { startServer } from "~/server/app.server";
+import { DEMO_RIVERLINE_KEY, demoKeyLines } from "./demo-keys";
+import { SeedError, seedDemo } from "./seed";
+
+const HOUR_MS = 3600_000;
+
+const env = loadEnv();
+if (env.NODE_ENV === "production") {
+  console.error("demo: refusing to run with NODE_ENV=production: the demo keys are public");
+  process.exit(2);
+}
+
+const db = await createDb(env.DATABASE_URL, env.DATABASE_AUTH_TOKEN);
+try {
+  await runMigrations(db);
+  await seedDemo(db, { node: env.NODE_ID, log: (line) => console.log(line) });
+} catch (error) {
+  if (!(error instanceof SeedError)) throw error;
+  console.error(`demo: ${error.message} (npm run seed -- --reset)`);
+  process.exit(2);
+} finally {
+  closeDb(db);
+}
+
+const server = await startServer({ env: { ...env, NODE_ENV: "development" } }).catch((error: unknown) => {
+  console.error(error);
+  process.exit(1);
+});
+
+// Whole hours around the seeded day, with room for flows replayed from now on.
+const from = new Date(Math.floor((Date.now() - 24 * HOUR_MS) / HOUR_MS) * HOUR_MS).toISOString();
+const to = new Date(Math.ceil((Date.now() + HOUR_MS) / HOUR_MS) * HOUR_MS).toISOString();
+const flow = { src: "198.51.100.10", dst: "203.0.113.130", sport: 51000, dport: 443, proto: 6, bytes: 120000, packets: 90, bgpSourceAsNumber: 64497, bgpDestinationAsNumber: 64504 };
+
+console.log(
+  [
+    "",
+    `Weir demo running at ${server.url}  (invented data; documentation addresses only)`,
+    "",
+    ...demoKeyLines(),
+    "",
+    "Send a flow (ingest scope):",
+    `  curl -sS -X POST "${server.url}/api/v1/flows" \\`,
+    `    -H "Authorization: Bearer ${DEMO_RIVERLINE_KEY}" \\`,
+    `    -H "Content-Type: application/json" -H "Idempotency-Key: demo-$(date +%s)" \\`,
+    `    --data '${JSON.stringify([flow])}'`,
+    "",
+    "Estimate bytes from 198.51.100.0/25 to port 443 over the day, per collector (query scope):",
+    `  curl -sS "${server.url}/api/v1/estimate?from=${from}&to=${to}&src=198.51.100.0/25&dport=443&metric=bytes&groupBy=collector" \\`,
+    `    -H "Authorization: Bearer ${DEMO_RIVERLINE_KEY}"`,
+    "",
+    "Live traffic for the console:",
+    `  npm run replay -- --url ${server.url} --key ${DEMO_RIVERLINE_KEY} --rate 2000`,
+    "",
+    "Ctrl-C stops the server.",
+    "",
+  ].join("\n"),
+);
+
+for (const signal of ["SIGTERM", "SIGINT"] as const) {
+  process.once(signal, () => {
+    server.close().then(
+      () => process.exit(0),
+      (error: unknown) => {
+        server.logger.error({ err: error }, "shutdown failed");
+        process.exit(1);
+      },
+    );
+  });
+}

@@ -1,0 +1,165 @@
+// `npm run seed [-- --reset]`: fills DATABASE_URL with the INVENTED demo scenario of
+// `scenario.ts` (a day of flows for the fictional carrier "riverline" and its customer
+// "tributary", documentation addresses only) and the public DEMO keys of `demo-keys.ts`.
+// Demo data only: it refuses to run with NODE_ENV=production.
+import { pathToFileURL } from "node:url";
+import { parseArgs } from "node:util";
+import { inArray } from "drizzle-orm";
+import { createApiKey, scopesFor } from "~/auth/api-keys.server";
+import { closeDefaultDb, getDb, type Db } from "~/db/client.server";
+import { runMigrations } from "~/db/migrate.server";
+import { apiKeys, tenants } from "~/db/schema.server";
+import { loadEnv } from "~/env.server";
+import { ReservoirManager } from "~/ingest/manager.server";
+import type { FlowRecord } from "~/flow/record";
+import { seededUniform } from "~/sampling/uniform";
+import { createTenant, ensureCollector } from "~/tenants.server";
+import { DEMO_KEYS, demoKeyLines } from "./demo-keys";
+import { DEMO_TENANTS, SITES, dayOfFlows } from "./scenario";
+
+/** Seeds the scenario's flows; any fixed number does. */
+export const SCENARIO_SEED = 1;
+/** Seeds the priorities u_i, so the kept samples are the same on every run too. */
+const SAMPLING_SEED = 5;
+// Large enough that per-batch overhead vanishes, small enough that one batch's transaction stays short.
+const BATCH_RECORDS = 5000;
+const LIVE_RESERVOIRS = 16;
+
+export class SeedError extends Error {
+  override name = "SeedError";
+}
+
+export interface SeedOptions {
+  /** The node id reservoirs are stored under, as the server would use (env NODE_ID). */
+  node: string;
+  /** The end of the seeded day; defaults to now. */
+  now?: number;
+  /** Deletes the demo tenants (and everything of theirs) first. */
+  reset?: boolean;
+  log?: (line: string) => void;
+}
+
+export interface SeedResult {
+  status: "seeded" | "present";
+  /** Flow records ingested per tenant/collector; empty when nothing was done. */
+  collectors: { tenant: string; collector: string; records: number }[];
+}
+
+const DEMO_SLUGS = DEMO_TENANTS.map((t) => t.slug);
+
+/** `weir_<8 hex>`, the stored visible part of a key. */
+const keyPrefix = (key: string) => key.slice(0, "weir_".length + 8);
+
+/**
+ * Creates the demo tenants, their collectors, a day of scenario flows ending at `now`
+ * (fed through `ReservoirManager.ingest` in batches, the path of the ingest API after
+ * validation) and the demo keys, in that order: the keys come last, so their presence
+ * marks a finished seed. Does nothing when the demo tenants are already complete;
+ * throws a `SeedError` when they exist half-made or were made by hand.
+ */
+export async function seedDemo(db: Db, options: SeedOptions): Promise<SeedResult> {
+  const log = options.log ?? (() => {});
+  if (options.reset) {
+    // Cascades to collectors, keys, reservoirs, kept records and ingest batches.
+    const removed = await db.delete(tenants).where(inArray(tenants.slug, DEMO_SLUGS)).returning({ slug: tenants.slug });
+    if (removed.length > 0) log(`Removed demo tenants: ${removed.map((t) => t.slug).join(", ")}`);
+  } else {
+    const present = await db.select({ slug: tenants.slug }).from(tenants).where(inArray(tenants.slug, DEMO_SLUGS));
+    if (present.length > 0) {
+      const keys = await db.select({ prefix: apiKeys.prefix }).from(apiKeys).where(inArray(apiKeys.prefix, DEMO_KEYS.map((k) => keyPrefix(k.key))));
+      if (present.length === DEMO_SLUGS.length && keys.length === DEMO_KEYS.length) {
+        log(`Demo tenants ${DEMO_SLUGS.join(", ")} already exist; nothing to do (--reset wipes and reseeds them).`);
+        return { status: "present", collectors: [] };
+      }
+      throw new SeedError(
+        `tenant ${present.map((t) => t.slug).join(", ")} exists but is not a complete demo seed; ` +
+          "run with --reset to delete the demo tenants and seed them again",
+      );
+    }
+  }
+
+  const now = options.now ?? Date.now();
+  const startedAt = performance.now();
+  log(`Seeding a day of invented demo flows ending ${new Date(now).toISOString()} (documentation addresses only):`);
+  // Flows arrive in time order, so a window is finished once the next has begun: keeping a
+  // few live reservoirs instead of the whole day holds memory to tens of megabytes.
+  const manager = new ReservoirManager(db, { node: options.node, uniform: seededUniform(SAMPLING_SEED), maxLive: LIVE_RESERVOIRS });
+  const made = new Map<string, { id: number; sampleSize: number; windowSeconds: number; weightAttribute: "bytes" | "packets" }>();
+  for (const t of DEMO_TENANTS) made.set(t.slug, await createTenant(db, t));
+
+  const result: SeedResult = { status: "seeded", collectors: [] };
+  for (const site of SITES) {
+    const tenant = made.get(site.tenant)!;
+    const collector = await ensureCollector(db, tenant.id, site.collector);
+    let batch: FlowRecord[] = [];
+    let records = 0;
+    const send = async () => {
+      await manager.ingest({ tenant, collector, records: batch, receivedAt: now });
+      records += batch.length;
+      batch = [];
+    };
+    for (const minute of dayOfFlows(site, now, SCENARIO_SEED)) {
+      batch.push(...minute);
+      if (batch.length >= BATCH_RECORDS) await send();
+    }
+    if (batch.length > 0) await send();
+    result.collectors.push({ tenant: site.tenant, collector: site.collector, records });
+    log(`  ${`${site.tenant}/${site.collector}`.padEnd(20)} ${records.toLocaleString("en-US").padStart(8)} flow records`);
+  }
+
+  for (const demo of DEMO_KEYS) {
+    const tenant = made.get(demo.tenant)!;
+    const collector = await ensureCollector(db, tenant.id, demo.collector);
+    await createApiKey(db, { tenantId: tenant.id, collectorId: collector.id, scopes: scopesFor(demo.scope), createdBy: "seed (demo data)", key: demo.key });
+  }
+  const total = result.collectors.reduce((sum, c) => sum + c.records, 0);
+  log(`Seeded ${total.toLocaleString("en-US")} flow records in ${((performance.now() - startedAt) / 1000).toFixed(1)} s. Events worth slicing:`);
+  for (const event of SITES.flatMap((site) => site.events)) log(`  ${event.description}`);
+  return result;
+}
+
+const USAGE = `Usage: npm run seed [-- --reset]
+
+Seeds the invented demo scenario (tenants ${DEMO_SLUGS.join(", ")}; a day of flows ending now;
+documentation addresses only) and the public demo keys into DATABASE_URL.
+Does nothing when the demo tenants exist already.
+
+  --reset   delete the demo tenants (only those) and seed them again
+  --help    show this text`;
+
+async function main(): Promise<void> {
+  let values: { reset?: boolean; help?: boolean };
+  try {
+    ({ values } = parseArgs({ options: { reset: { type: "boolean" }, help: { type: "boolean", short: "h" } }, strict: true }));
+  } catch (error) {
+    console.error(`seed: ${(error as Error).message}\n\n${USAGE}`);
+    process.exitCode = 2;
+    return;
+  }
+  if (values.help) {
+    console.log(USAGE);
+    return;
+  }
+  const env = loadEnv();
+  if (env.NODE_ENV === "production") {
+    console.error("seed: refusing to run with NODE_ENV=production: the demo keys are public");
+    process.exitCode = 2;
+    return;
+  }
+  try {
+    const db = await getDb();
+    await runMigrations(db);
+    console.log(`Database: ${env.DATABASE_URL}`);
+    await seedDemo(db, { node: env.NODE_ID, reset: values.reset, log: (line) => console.log(line) });
+    console.log(["", ...demoKeyLines()].join("\n"));
+  } catch (error) {
+    if (!(error instanceof SeedError)) throw error;
+    console.error(`seed: ${error.message}`);
+    process.exitCode = 2;
+  } finally {
+    await closeDefaultDb();
+  }
+}
+
+// Runs only as a script; `demo.ts` and the tests import `seedDemo`.
+if (process.argv[1] && import.meta.url === pathToFileURL(process.argv[1]).href) await main();
