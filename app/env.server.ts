@@ -29,8 +29,26 @@ export const envSchema = z
     INGEST_MAX_BODY_BYTES: z.coerce.number().int().positive().default(16_777_216),
     INGEST_MAX_RECORDS: z.coerce.number().int().positive().default(100_000),
     IDEMPOTENCY_TTL_HOURS: z.coerce.number().positive().default(24),
+    // Console sign-in. With GITHUB_CLIENT_ID/SECRET set, Weir signs people in through GitHub;
+    // without them, outside production, it starts a local fake GitHub (see scripts/fakes).
+    GITHUB_CLIENT_ID: z.string().min(1).optional(),
+    GITHUB_CLIENT_SECRET: z.string().min(1).optional(),
+    GITHUB_OAUTH_URL: z.url().default("https://github.com"),
+    GITHUB_API_URL: z.url().default("https://api.github.com"),
+    // The console's public base URL (OAuth callback, invite links); defaults to the request's own origin.
+    PUBLIC_URL: z.url().optional(),
   })
   .superRefine((env, ctx) => {
+    if (env.NODE_ENV === "production" && (!env.GITHUB_CLIENT_ID || !env.GITHUB_CLIENT_SECRET)) {
+      ctx.addIssue({
+        code: "custom",
+        path: [env.GITHUB_CLIENT_ID ? "GITHUB_CLIENT_SECRET" : "GITHUB_CLIENT_ID"],
+        message: "must be set in production: the console signs people in through a GitHub OAuth app (the local fake exists only outside production)",
+      });
+    }
+    if (Boolean(env.GITHUB_CLIENT_ID) !== Boolean(env.GITHUB_CLIENT_SECRET)) {
+      ctx.addIssue({ code: "custom", path: ["GITHUB_CLIENT_SECRET"], message: "GITHUB_CLIENT_ID and GITHUB_CLIENT_SECRET go together" });
+    }
     if (env.NODE_ENV === "production" && env.SESSION_SECRET === DEV_SESSION_SECRET) {
       ctx.addIssue({
         code: "custom",

@@ -8,6 +8,8 @@ import { createApiKey, revokeApiKey, scopesFor } from "~/auth/api-keys.server";
 import { closeDefaultDb, getDb, type Db } from "~/db/client.server";
 import { runMigrations } from "~/db/migrate.server";
 import { apiKeys, collectors, tenants } from "~/db/schema.server";
+import { recordAudit } from "~/audit.server";
+import { emailSchema, ensureUserByEmail, roleSchema, setMembership } from "~/auth/users.server";
 import { collectorNameSchema, createTenant, ensureCollector, findTenantBySlug, listTenants, newTenantSchema } from "~/tenants.server";
 
 const USAGE = `Usage: npm run admin -- <command> [options]
@@ -21,6 +23,10 @@ Commands:
                        alone on the last line of stdout; only its SHA-256 is stored.
   key list <tenant>
   key revoke <prefix>  The prefix is the first part of a key, e.g. weir_1a2b3c4d.
+  user grant <email> <tenant> <viewer|engineer|admin>
+                       Gives a person a role in a tenant (bootstraps the first admin);
+                       they sign in to the console with the GitHub account whose
+                       verified primary e-mail this is.
 
 Defaults: --sample-size 1024, --window-seconds 300 (one of 60, 300, 900, 3600),
 --weight bytes, --retention-days 30, --scope ingest.
@@ -57,6 +63,7 @@ const COMMANDS: Record<string, Command> = {
   "key create": { args: ["tenant", "collector"], options: { scope: { type: "string" } }, run: keyCreate },
   "key list": { args: ["tenant"], options: {}, run: keyList },
   "key revoke": { args: ["prefix"], options: {}, run: keyRevoke },
+  "user grant": { args: ["email", "tenant", "role"], options: {}, run: userGrant },
 };
 
 // ---- tenants -----------------------------------------------------------------------------
@@ -205,6 +212,20 @@ async function keyRevoke(db: Db, [prefix]: string[]): Promise<void> {
     throw new UsageError(`key ${prefix} (${key.tenant}/${key.collector}) is already revoked`);
   }
   console.log(`Revoked key ${prefix} (${key.tenant}/${key.collector}); requests with it now answer 401.`);
+}
+
+// ---- people ------------------------------------------------------------------------------
+
+async function userGrant(db: Db, [email, slug, role]: string[]): Promise<void> {
+  const address = emailSchema.safeParse(email);
+  if (!address.success) throw new UsageError(`<email> must be an e-mail address, got '${email}'`);
+  const parsedRole = roleSchema.safeParse(role);
+  if (!parsedRole.success) throw new UsageError(`<role> must be viewer, engineer or admin, got '${role}'`);
+  const tenant = await requireTenant(db, slug);
+  const user = await ensureUserByEmail(db, address.data);
+  await setMembership(db, user.id, tenant.id, parsedRole.data);
+  await recordAudit(db, { tenantId: tenant.id, actor: { id: null, label: "admin CLI" }, action: "member.grant", target: address.data, detail: { role: parsedRole.data } });
+  console.log(`${address.data} is now ${parsedRole.data} in ${tenant.slug}${user.githubId === null ? " (they have not signed in yet)" : ""}.`);
 }
 
 // ---- output ------------------------------------------------------------------------------

@@ -34,3 +34,11 @@ export function demoKeyLines(): string[] {
     ...DEMO_KEYS.map((k) => `  ${`${k.tenant}/${k.collector}`.padEnd(20)} ${(k.scope === "both" ? "ingest+query" : k.scope).padEnd(13)} ${k.key}`),
   ];
 }
+
+/** Who may sign in to the demo console, and as what: the fake GitHub's invented accounts. */
+export const DEMO_MEMBERS: readonly { email: string; tenant: string; role: "viewer" | "engineer" | "admin" }[] = [
+  { email: "ada@example.com", tenant: "riverline", role: "admin" },
+  { email: "eli@example.com", tenant: "riverline", role: "engineer" },
+  { email: "vera@example.com", tenant: "riverline", role: "viewer" },
+  { email: "oskar@example.org", tenant: "tributary", role: "admin" },
+];

@@ -14,7 +14,8 @@ import { ReservoirManager } from "~/ingest/manager.server";
 import type { FlowRecord } from "~/flow/record";
 import { seededUniform } from "~/sampling/uniform";
 import { createTenant, ensureCollector } from "~/tenants.server";
-import { DEMO_KEYS, demoKeyLines } from "./demo-keys";
+import { DEMO_KEYS, DEMO_MEMBERS, demoKeyLines } from "./demo-keys";
+import { ensureUserByEmail, setMembership } from "~/auth/users.server";
 import { DEMO_TENANTS, SITES, dayOfFlows } from "./scenario";
 
 /** Seeds the scenario's flows; any fixed number does. */
@@ -106,6 +107,13 @@ export async function seedDemo(db: Db, options: SeedOptions): Promise<SeedResult
     result.collectors.push({ tenant: site.tenant, collector: site.collector, records });
     log(`  ${`${site.tenant}/${site.collector}`.padEnd(20)} ${records.toLocaleString("en-US").padStart(8)} flow records`);
   }
+
+  // Console members: the invented accounts of the local fake GitHub (scripts/fakes/github.ts).
+  for (const member of DEMO_MEMBERS) {
+    const user = await ensureUserByEmail(db, member.email);
+    await setMembership(db, user.id, made.get(member.tenant)!.id, member.role);
+  }
+  log(`Console members (sign in through the local fake GitHub): ${DEMO_MEMBERS.map((m) => `${m.email} ${m.role} in ${m.tenant}`).join("; ")}`);
 
   for (const demo of DEMO_KEYS) {
     const tenant = made.get(demo.tenant)!;

@@ -13,7 +13,11 @@ export function ErrorPanel({ error }: { error: unknown }) {
 
   if (isRouteErrorResponse(error)) {
     status = String(error.status);
-    if (error.status === 404) {
+    const message = typeof error.data === "object" && error.data !== null && typeof error.data.message === "string" ? error.data.message : undefined;
+    if (message) {
+      title = error.status === 404 ? "Not found" : error.status === 403 ? "Not allowed" : error.statusText || title;
+      detail = message;
+    } else if (error.status === 404) {
       // Fixed text: for an unmatched URL the router's own data is an internal message.
       title = "Not found";
       detail = "Nothing lives at this address.";

@@ -176,3 +176,84 @@ export type KeptRecord = typeof keptRecords.$inferSelect;
 export type NewKeptRecord = typeof keptRecords.$inferInsert;
 export type IngestBatch = typeof ingestBatches.$inferSelect;
 export type NewIngestBatch = typeof ingestBatches.$inferInsert;
+
+export const ROLES = ["viewer", "engineer", "admin"] as const;
+export type Role = (typeof ROLES)[number];
+
+/**
+ * People who sign in to the console (through GitHub). A row may exist before the first
+ * sign-in, made by `admin user grant` or an accepted invite, with only the e-mail known;
+ * the first sign-in with that verified e-mail links the GitHub account.
+ */
+export const users = sqliteTable("users", {
+  id: integer("id").primaryKey({ autoIncrement: true }),
+  githubId: integer("github_id").unique(),
+  login: text("login"),
+  name: text("name"),
+  email: text("email").notNull().unique(),
+  avatarUrl: text("avatar_url"),
+  createdAt: integer("created_at").notNull().$defaultFn(() => Date.now()),
+  lastSignInAt: integer("last_sign_in_at"),
+});
+
+/** Who belongs to which tenant, with which role. */
+export const memberships = sqliteTable(
+  "memberships",
+  {
+    userId: integer("user_id")
+      .notNull()
+      .references(() => users.id, { onDelete: "cascade" }),
+    tenantId: integer("tenant_id")
+      .notNull()
+      .references(() => tenants.id, { onDelete: "cascade" }),
+    role: text("role", { enum: ROLES }).notNull(),
+    createdAt: integer("created_at").notNull().$defaultFn(() => Date.now()),
+  },
+  (t) => [primaryKey({ columns: [t.userId, t.tenantId] }), check("memberships_role_check", sql`${t.role} in ('viewer', 'engineer', 'admin')`)],
+);
+
+/** An e-mailed invitation to join a tenant; only the hash of its token is kept, and it works once. */
+export const invites = sqliteTable(
+  "invites",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    tenantId: integer("tenant_id")
+      .notNull()
+      .references(() => tenants.id, { onDelete: "cascade" }),
+    email: text("email").notNull(),
+    role: text("role", { enum: ROLES }).notNull(),
+    tokenHash: text("token_hash").notNull().unique(),
+    invitedBy: integer("invited_by").references(() => users.id, { onDelete: "set null" }),
+    createdAt: integer("created_at").notNull().$defaultFn(() => Date.now()),
+    expiresAt: integer("expires_at").notNull(),
+    acceptedAt: integer("accepted_at"),
+    acceptedBy: integer("accepted_by").references(() => users.id, { onDelete: "set null" }),
+    revokedAt: integer("revoked_at"),
+  },
+  (t) => [index("invites_tenant_idx").on(t.tenantId, t.createdAt)],
+);
+
+/**
+ * The ledger: who did what, when. `tenant_id` is null for events outside any tenant
+ * (a sign-in). `actor` is a label that survives the user's deletion.
+ */
+export const auditLog = sqliteTable(
+  "audit_log",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    tenantId: integer("tenant_id").references(() => tenants.id, { onDelete: "cascade" }),
+    actorUserId: integer("actor_user_id").references(() => users.id, { onDelete: "set null" }),
+    actor: text("actor").notNull(),
+    action: text("action").notNull(),
+    target: text("target"),
+    /** JSON object with the particulars (old and new values of a setting, a key prefix …). */
+    detail: text("detail"),
+    at: integer("at").notNull().$defaultFn(() => Date.now()),
+  },
+  (t) => [index("audit_log_tenant_at_idx").on(t.tenantId, t.at), index("audit_log_actor_at_idx").on(t.actorUserId, t.at)],
+);
+
+export type User = typeof users.$inferSelect;
+export type Membership = typeof memberships.$inferSelect;
+export type Invite = typeof invites.$inferSelect;
+export type AuditEntry = typeof auditLog.$inferSelect;

@@ -12,6 +12,7 @@ import { runMigrations } from "../db/migrate.server";
 import { loadEnv, type Env } from "../env.server";
 import { createLogger, type Logger } from "../logger.server";
 import { ReservoirManager } from "../ingest/manager.server";
+import type { GitHubConfig } from "../auth/github.server";
 import type { UniformSource } from "../sampling/uniform";
 
 declare module "react-router" {
@@ -23,6 +24,7 @@ declare module "react-router" {
     env: Env;
     logger: Logger;
     manager: ReservoirManager;
+    github: GitHubConfig;
   }
 }
 
@@ -52,6 +54,7 @@ export interface WeirServer {
   env: Env;
   logger: Logger;
   manager: ReservoirManager;
+  github: GitHubConfig;
   /** Stops accepting connections, lets in-flight requests finish, then closes the database. */
   close(): Promise<void>;
 }
@@ -68,7 +71,9 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
 
   const db = await createDb(env.DATABASE_URL, env.DATABASE_AUTH_TOKEN);
   let vite: ViteDevServer | undefined;
+  const fakes: { close(): Promise<void> }[] = [];
   try {
+    const github = await githubConfig(env, fakes, logger);
     await runMigrations(db);
     logger.info("database migrated");
     const manager = new ReservoirManager(db, {
@@ -107,7 +112,7 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
       createRequestHandler({
         build,
         mode: production ? "production" : "development",
-        getLoadContext: () => ({ db, env, logger, manager }),
+        getLoadContext: () => ({ db, env, logger, manager, github }),
       }),
     );
     app.use(lastResortErrorHandler(logger));
@@ -118,15 +123,37 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
 
     let closing: Promise<void> | undefined;
     const close = () => {
-      closing ??= shutDown(httpServer, vite, db, logger, manager);
+      closing ??= shutDown(httpServer, vite, db, logger, manager).then(() => closeAll(fakes));
       return closing;
     };
-    return { url, port, httpServer, app, db, env, logger, manager, close };
+    return { url, port, httpServer, app, db, env, logger, manager, github, close };
   } catch (error) {
     await vite?.close();
+    await closeAll(fakes);
     closeDb(db);
     throw error;
   }
+}
+
+/**
+ * GitHub sign-in: the real one when an OAuth app is configured; otherwise (never in
+ * production: the environment check refuses that) a local fake GitHub on a free loopback
+ * port, started here so development, the demo and tests sign in the same way.
+ */
+async function githubConfig(env: Env, fakes: { close(): Promise<void> }[], logger: Logger): Promise<GitHubConfig> {
+  if (env.GITHUB_CLIENT_ID && env.GITHUB_CLIENT_SECRET) {
+    return { clientId: env.GITHUB_CLIENT_ID, clientSecret: env.GITHUB_CLIENT_SECRET, oauthUrl: env.GITHUB_OAUTH_URL, apiUrl: env.GITHUB_API_URL, fake: false };
+  }
+  if (env.NODE_ENV === "production") throw new Error("GitHub OAuth credentials are required in production");
+  const { startFakeGitHub } = await import("../../scripts/fakes/github");
+  const fake = await startFakeGitHub();
+  fakes.push(fake);
+  logger.info({ url: fake.url }, "fake GitHub started for development sign-in");
+  return { clientId: "weir-dev", clientSecret: "weir-dev-secret", oauthUrl: fake.url, apiUrl: fake.url, fake: true };
+}
+
+async function closeAll(fakes: { close(): Promise<void> }[]): Promise<void> {
+  await Promise.all(fakes.map((f) => f.close()));
 }
 
 async function loadProductionBuild(app: express.Express): Promise<ServerBuild> {

@@ -69,11 +69,15 @@ describe("server (development mode, Vite middleware)", () => {
     expect(result.rows.map((row) => row.name)).toEqual([
       "__drizzle_migrations",
       "api_keys",
+      "audit_log",
       "collectors",
       "ingest_batches",
+      "invites",
       "kept_records",
+      "memberships",
       "reservoirs",
       "tenants",
+      "users",
     ]);
   });
 
@@ -134,6 +138,12 @@ describe("parseEnv", () => {
       expect((error as EnvError).message).toMatch(/SESSION_SECRET: must be at least 32 characters/);
       expect((error as EnvError).message).not.toContain(secret);
     }
-    expect(parseEnv({ NODE_ENV: "production", SESSION_SECRET: "x".repeat(32) }).NODE_ENV).toBe("production");
+    const github = { GITHUB_CLIENT_ID: "Iv1.0123456789abcdef", GITHUB_CLIENT_SECRET: "0".repeat(40) };
+    expect(parseEnv({ NODE_ENV: "production", SESSION_SECRET: "x".repeat(32), ...github }).NODE_ENV).toBe("production");
+  });
+
+  it("requires GitHub OAuth credentials in production, where no fake sign-in exists", () => {
+    expect(() => parseEnv({ NODE_ENV: "production", SESSION_SECRET: "x".repeat(32) })).toThrow(/GITHUB_CLIENT_ID: must be set in production/);
+    expect(() => parseEnv({ GITHUB_CLIENT_ID: "Iv1.0123456789abcdef" })).toThrow(/GITHUB_CLIENT_SECRET: GITHUB_CLIENT_ID and GITHUB_CLIENT_SECRET go together/);
   });
 });
