@@ -6,6 +6,7 @@ export default defineConfig({
   resolve: { alias: { "~": fileURLToPath(new URL("./app", import.meta.url)) } },
   test: {
     include: ["tests/**/*.test.ts"],
+    globalSetup: ["tests/global-setup.ts"],
     environment: "node",
     testTimeout: 60_000,
     hookTimeout: 60_000,

@@ -11,7 +11,20 @@ export default [
   route("auth/github", "routes/auth.github.ts"),
   route("auth/github/callback", "routes/auth.github.callback.ts"),
   route("console", "routes/console.index.tsx"),
+  route("invite/:token", "routes/invite.tsx"),
+  // Development only: answers 404 unless the local fake SMTP server is in use (never in production).
+  route("dev/mail", "routes/dev.mail.tsx"),
 
   // The console of one tenant; every child checks membership and role again on the server.
-  route("t/:tenant", "routes/console.tsx", [index("routes/console.tenant-index.ts")]),
+  route("t/:tenant", "routes/console.tsx", [
+    index("routes/console.tenant-index.ts"),
+    route("slice", "routes/console.slice.tsx"),
+    route("intake", "routes/console.intake.tsx"),
+    // JSON for the Intake page's polling (a resource route: no component).
+    route("intake-data", "routes/console.intake-data.ts"),
+    route("keys", "routes/console.keys.tsx"),
+    route("settings", "routes/console.settings.tsx"),
+    route("people", "routes/console.people.tsx"),
+    route("ledger", "routes/console.ledger.tsx"),
+  ]),
 ] satisfies RouteConfig;

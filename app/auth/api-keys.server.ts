@@ -33,14 +33,19 @@ export async function createApiKey(
   db: Db,
   input: { tenantId: number; collectorId: number; scopes: KeyScopes; createdBy?: string | null; key?: string },
 ): Promise<CreatedKey> {
-  const key = input.key ?? `weir_${randomBytes(4).toString("hex")}_${randomBytes(24).toString("base64url")}`;
-  const match = KEY_PATTERN.exec(key);
-  if (!match) throw new Error("malformed API key");
-  const [row] = await db
-    .insert(apiKeys)
-    .values({ tenantId: input.tenantId, collectorId: input.collectorId, prefix: match[1], hash: hashKey(key), scopes: input.scopes, createdBy: input.createdBy ?? null })
-    .returning({ id: apiKeys.id });
-  return { id: row.id, prefix: match[1], key };
+  // The visible prefix has 32 random bits, so two keys may one day draw the same one: draw again.
+  for (let attempt = 0; ; attempt++) {
+    const key = input.key ?? `weir_${randomBytes(4).toString("hex")}_${randomBytes(24).toString("base64url")}`;
+    const match = KEY_PATTERN.exec(key);
+    if (!match) throw new Error("malformed API key");
+    const taken = await db.select({ id: apiKeys.id }).from(apiKeys).where(eq(apiKeys.prefix, match[1]));
+    if (taken.length > 0 && input.key === undefined && attempt < 5) continue;
+    const [row] = await db
+      .insert(apiKeys)
+      .values({ tenantId: input.tenantId, collectorId: input.collectorId, prefix: match[1], hash: hashKey(key), scopes: input.scopes, createdBy: input.createdBy ?? null })
+      .returning({ id: apiKeys.id });
+    return { id: row.id, prefix: match[1], key };
+  }
 }
 
 /** Revokes the key with that prefix; false when there is none or it was already revoked. */

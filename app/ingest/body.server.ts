@@ -1,6 +1,8 @@
 import { promisify } from "node:util";
 import { gunzip } from "node:zlib";
 import { ApiError } from "~/auth/api-keys.server";
+import { parseFlowBatch } from "~/flow/record";
+import { packFlowRecords, type PackedFlows } from "./kept-codec";
 
 const gunzipAsync = promisify(gunzip);
 
@@ -21,13 +23,37 @@ export interface RecordProblem {
   message: string;
 }
 
+/** A body as read, with what is needed to decode it; plain data, so it can cross to a worker thread. */
+export interface ParseJob {
+  /** Owns its whole ArrayBuffer, so the buffer can be transferred rather than copied. */
+  body: Uint8Array<ArrayBuffer>;
+  ndjson: boolean;
+  gzip: boolean;
+  limits: BodyLimits;
+}
+
 /**
- * Reads an ingest body as a list of raw JSON values: a JSON array, or NDJSON
- * (one value a line), optionally gzip-compressed. Never holds more than the
- * limit in memory: the compressed body is capped at the limit while reading, and
- * decompression stops at the limit too (a gzip bomb answers 413, not a crash).
+ * A decoded and validated batch, or the API error to answer instead, as plain data: an
+ * ApiError instance would not survive the trip from a worker, nor `instanceof` across
+ * the server's and the route bundle's copies of its class.
  */
-export async function readRecordValues(request: Request, limits: BodyLimits): Promise<unknown[]> {
+export type ParseOutcome =
+  | { ok: true; packed: PackedFlows }
+  | { ok: false; status: number; code: string; message: string; extra: Record<string, unknown> };
+
+/** Turns bodies into packed records: the parse-worker pool, or `parseFlowBody` in the calling thread. */
+export interface FlowBodyParser {
+  parse(job: ParseJob): Promise<ParseOutcome>;
+}
+
+/**
+ * Reads an ingest batch: a JSON array of flow records, or NDJSON (one record a line),
+ * optionally gzip-compressed. Content type and encoding are checked and the body is read
+ * here, under the size limit, before any parser sees it; `parser` then decodes and
+ * validates it (see `parseFlowBody`). Throws the ApiError to answer when the batch is
+ * refused.
+ */
+export async function readFlowBatch(request: Request, limits: BodyLimits, parser: FlowBodyParser): Promise<PackedFlows> {
   const type = (request.headers.get("content-type") ?? "").split(";")[0].trim().toLowerCase();
   const ndjson = NDJSON_TYPES.has(type);
   if (!ndjson && !JSON_TYPES.has(type)) {
@@ -41,11 +67,35 @@ export async function readRecordValues(request: Request, limits: BodyLimits): Pr
   if (encoding !== "identity" && encoding !== "gzip") {
     throw new ApiError(415, "unsupported_media_type", `Content-Encoding must be gzip or absent, not ${encoding}.`);
   }
+  const body = await readLimited(request, limits.maxBodyBytes);
+  const outcome = await parser.parse({ body, ndjson, gzip: encoding === "gzip", limits });
+  if (!outcome.ok) throw new ApiError(outcome.status, outcome.code, outcome.message, outcome.extra);
+  return outcome.packed;
+}
 
-  let body = await readLimited(request, limits.maxBodyBytes);
-  if (encoding === "gzip") {
+/**
+ * Decodes a body read by `readFlowBatch` (gunzip, UTF-8, JSON or NDJSON) and validates
+ * every record, giving the records packed as kept-codec rows or the error to answer.
+ * Never holds more than the limit in memory: decompression stops at the limit too (a
+ * gzip bomb answers 413, not a crash). Rejects only on a fault of its own.
+ */
+export async function parseFlowBody(job: ParseJob): Promise<ParseOutcome> {
+  try {
+    const values = await decodeValues(job);
+    const parsed = parseFlowBatch(values);
+    if (!parsed.ok) throw invalidRecords(parsed.details, parsed.invalidCount);
+    return { ok: true, packed: packFlowRecords(parsed.records) };
+  } catch (error) {
+    if (!(error instanceof ApiError)) throw error;
+    return { ok: false, status: error.status, code: error.code, message: error.message, extra: error.extra };
+  }
+}
+
+async function decodeValues({ body, ndjson, gzip, limits }: ParseJob): Promise<unknown[]> {
+  let bytes: Uint8Array = body;
+  if (gzip) {
     try {
-      body = await gunzipAsync(body, { maxOutputLength: limits.maxBodyBytes });
+      bytes = await gunzipAsync(body, { maxOutputLength: limits.maxBodyBytes });
     } catch (error) {
       if ((error as { code?: string }).code === "ERR_BUFFER_TOO_LARGE") throw tooLarge(limits.maxBodyBytes, "after decompression");
       throw new ApiError(400, "invalid_body", "The body is not valid gzip data.");
@@ -53,17 +103,19 @@ export async function readRecordValues(request: Request, limits: BodyLimits): Pr
   }
   let text: string;
   try {
-    text = new TextDecoder("utf-8", { fatal: true }).decode(body);
+    text = new TextDecoder("utf-8", { fatal: true }).decode(bytes);
   } catch {
     throw new ApiError(400, "invalid_body", "The body is not valid UTF-8.");
   }
   return ndjson ? parseNdjson(text, limits.maxRecords) : parseJsonArray(text, limits.maxRecords);
 }
 
-async function readLimited(request: Request, maxBytes: number): Promise<Buffer> {
+// The result owns its whole ArrayBuffer (unlike Buffer.concat, which may return a slice
+// of Node's shared pool), so it can be transferred to a worker.
+async function readLimited(request: Request, maxBytes: number): Promise<Uint8Array<ArrayBuffer>> {
   const declared = Number(request.headers.get("content-length"));
   if (Number.isFinite(declared) && declared > maxBytes) throw tooLarge(maxBytes);
-  if (!request.body) return Buffer.alloc(0);
+  if (!request.body) return new Uint8Array(0);
   const reader = request.body.getReader();
   const chunks: Uint8Array[] = [];
   let total = 0;
@@ -77,7 +129,13 @@ async function readLimited(request: Request, maxBytes: number): Promise<Buffer> 
     }
     chunks.push(value);
   }
-  return Buffer.concat(chunks, total);
+  const body = new Uint8Array(total);
+  let at = 0;
+  for (const chunk of chunks) {
+    body.set(chunk, at);
+    at += chunk.byteLength;
+  }
+  return body;
 }
 
 function tooLarge(maxBytes: number, when = ""): ApiError {
@@ -127,7 +185,7 @@ function parseNdjson(text: string, maxRecords: number): unknown[] {
 }
 
 /** The 400 answer for a batch with invalid records; nothing of the batch is applied. */
-export function invalidRecords(details: RecordProblem[], invalidCount: number): ApiError {
+function invalidRecords(details: RecordProblem[], invalidCount: number): ApiError {
   return new ApiError(
     400,
     "invalid_records",

@@ -4,7 +4,7 @@ import type { FlowRecord } from "~/flow/record";
 import { Reservoir, type Kept } from "~/sampling/reservoir";
 import type { UniformSource } from "~/sampling/uniform";
 import { toColumns, type KeptColumns } from "~/query/columns";
-import { decodeKeptRow, encodeKeptRows, KEPT_ROW_BYTES } from "./kept-codec";
+import { decodeKeptRow, decodeRowRecord, encodeKeptRows, KEPT_ROW_BYTES, packFlowRecords, ROW_BYTES_AT, ROW_PACKETS_AT, ROW_START_AT, type PackedFlows } from "./kept-codec";
 import { windowStartOf } from "./window";
 
 /** A kept flow record and its row number inside its reservoir (-1 until stored). */
@@ -24,7 +24,8 @@ export interface TenantSampling {
 export interface IngestBatch {
   tenant: TenantSampling;
   collector: { id: number; name: string };
-  records: readonly FlowRecord[];
+  /** Validated records: packed as a parse worker hands them over, or as objects (seed, tests, benchmarks). */
+  records: readonly FlowRecord[] | PackedFlows;
   receivedAt: number;
   idempotencyKey?: string;
 }
@@ -84,6 +85,8 @@ const INSERT_KEPT =
   `INSERT INTO kept_records (reservoir_id, seq, data) SELECT ?1, ?4 + i, substr(?2, i * ${KEPT_ROW_BYTES} + 1, ${KEPT_ROW_BYTES}) FROM row`;
 const DELETE_KEPT = "DELETE FROM kept_records WHERE reservoir_id = ?1 AND seq IN (SELECT value FROM json_each(?2))";
 const IDEMPOTENCY_SWEEP_EVERY_MS = 60_000;
+// 2^21 rows of 32-bit counter halves sum below 2^53, where doubles stop being exact.
+const MAX_BATCH_RECORDS = 2 ** 21;
 
 /**
  * Keeps one live priority sample per (tenant, collector, window) for this node,
@@ -157,13 +160,17 @@ export class ReservoirManager {
       if (prior.rows.length > 0) return { ...(JSON.parse(String(prior.rows[0].response)) as IngestAnswer), duplicate: true };
     }
 
-    // Group by window first, so each reservoir is loaded once.
-    const byWindow = new Map<number, FlowRecord[]>();
-    for (const record of batch.records) {
-      const start = windowStartOf(record.start ?? receivedAt, tenant.windowSeconds);
-      let list = byWindow.get(start);
-      if (!list) byWindow.set(start, (list = []));
-      list.push(record);
+    const { rows, count } = "rows" in batch.records ? batch.records : packFlowRecords(batch.records);
+    if (count > MAX_BATCH_RECORDS) throw new RangeError(`a batch holds at most ${MAX_BATCH_RECORDS} records, got ${count}; split it`);
+    const view = new DataView(rows.buffer, rows.byteOffset, rows.byteLength);
+    // Group row numbers by window first, so each reservoir is loaded once.
+    const byWindow = new Map<number, number[]>();
+    for (let i = 0; i < count; i++) {
+      const start = view.getFloat64(i * KEPT_ROW_BYTES + ROW_START_AT, true);
+      const windowStart = windowStartOf(Number.isNaN(start) ? receivedAt : start, tenant.windowSeconds);
+      let list = byWindow.get(windowStart);
+      if (!list) byWindow.set(windowStart, (list = []));
+      list.push(i);
     }
     const touched: Live[] = [];
     for (const windowStart of [...byWindow.keys()].sort((a, b) => a - b)) {
@@ -174,21 +181,40 @@ export class ReservoirManager {
     let batchBytes = 0n;
     try {
       touched.forEach((live) => {
-        const records = byWindow.get(live.windowStart)!;
+        const rowNumbers = byWindow.get(live.windowStart)!;
         live.pending = true;
-        live.batchRecords = records.length;
-        for (const record of records) {
-          const entry = live.reservoir.offer({ seq: -1, record }, Number(byBytes ? record.bytes : record.packets));
-          if (entry) live.entered.add(entry);
-          live.bytes += record.bytes;
-          live.packets += record.packets;
-          batchBytes += record.bytes;
+        live.batchRecords = rowNumbers.length;
+        // Counters are summed as their 32-bit halves in doubles, exact up to MAX_BATCH_RECORDS
+        // rows, and joined into bigints once per window: a bigint per row and counter cost more
+        // than the offer itself.
+        let bytesLow = 0, bytesHigh = 0, packetsLow = 0, packetsHigh = 0;
+        for (const i of rowNumbers) {
+          const at = i * KEPT_ROW_BYTES;
+          const bl = view.getUint32(at + ROW_BYTES_AT, true), bh = view.getUint32(at + ROW_BYTES_AT + 4, true);
+          const pl = view.getUint32(at + ROW_PACKETS_AT, true), ph = view.getUint32(at + ROW_PACKETS_AT + 4, true);
+          bytesLow += bl;
+          bytesHigh += bh;
+          packetsLow += pl;
+          packetsHigh += ph;
+          // Rounded once, as Number(bigint) rounds, so the weight is exactly Number(bytes).
+          const weight = byBytes ? bh * 2 ** 32 + bl : ph * 2 ** 32 + pl;
+          // The record object is built only for the few rows that enter (O(k·log(n/k))), not for every row.
+          const item = { seq: -1 } as KeptFlow;
+          const entry = live.reservoir.offer(item, weight);
+          if (entry) {
+            item.record = decodeRowRecord(rows, at);
+            live.entered.add(entry);
+          }
         }
-        live.records += records.length;
+        const bytes = (BigInt(bytesHigh) << 32n) + BigInt(bytesLow);
+        live.bytes += bytes;
+        live.packets += (BigInt(packetsHigh) << 32n) + BigInt(packetsLow);
+        batchBytes += bytes;
+        live.records += rowNumbers.length;
       });
 
       const answer: IngestAnswer = {
-        accepted: batch.records.length,
+        accepted: count,
         duplicate: false,
         windows: touched.map((live) => ({
           collector: collector.name,
@@ -204,7 +230,7 @@ export class ReservoirManager {
       statements.push(
         {
           sql: "INSERT INTO ingest_batches (tenant_id, collector_id, idempotency_key, received_at, record_count, bytes, response) VALUES (?, ?, ?, ?, ?, ?, ?)",
-          args: [tenant.id, collector.id, idempotencyKey ?? null, receivedAt, batch.records.length, batchBytes.toString(), JSON.stringify(answer)],
+          args: [tenant.id, collector.id, idempotencyKey ?? null, receivedAt, count, batchBytes.toString(), JSON.stringify(answer)],
         },
         { sql: "UPDATE collectors SET last_seen_at = ? WHERE id = ?", args: [receivedAt, collector.id] },
       );

@@ -1,6 +1,5 @@
 import { ApiError, authenticateKey, touchKey } from "~/auth/api-keys.server";
-import { parseFlowBatch } from "~/flow/record";
-import { invalidRecords, readRecordValues } from "~/ingest/body.server";
+import { readFlowBatch } from "~/ingest/body.server";
 import type { Route } from "./+types/api.v1.flows";
 
 // Printable ASCII, as in the IETF idempotency-key header draft's examples; long enough for UUIDs and hashes.
@@ -12,7 +11,7 @@ const IDEMPOTENCY_KEY = /^[\x21-\x7e]{1,200}$/;
  * stored; a retry with the same Idempotency-Key is applied once.
  */
 export async function action({ request, context }: Route.ActionArgs) {
-  const { db, env, logger, manager } = context;
+  const { db, env, logger, manager, parsePool } = context;
   try {
     if (request.method !== "POST") throw new ApiError(405, "method_not_allowed", "Use POST to send flow records.");
     const principal = await authenticateKey(db, request, "ingest");
@@ -20,13 +19,11 @@ export async function action({ request, context }: Route.ActionArgs) {
     if (idempotencyKey !== undefined && !IDEMPOTENCY_KEY.test(idempotencyKey)) {
       throw new ApiError(400, "invalid_idempotency_key", "Idempotency-Key must be 1–200 printable ASCII characters without spaces.");
     }
-    const values = await readRecordValues(request, { maxBodyBytes: env.INGEST_MAX_BODY_BYTES, maxRecords: env.INGEST_MAX_RECORDS });
-    const parsed = parseFlowBatch(values);
-    if (!parsed.ok) throw invalidRecords(parsed.details, parsed.invalidCount);
+    const records = await readFlowBatch(request, { maxBodyBytes: env.INGEST_MAX_BODY_BYTES, maxRecords: env.INGEST_MAX_RECORDS }, parsePool);
     const answer = await manager.ingest({
       tenant: principal.tenant,
       collector: principal.collector,
-      records: parsed.records,
+      records,
       receivedAt: Date.now(),
       idempotencyKey,
     });

@@ -1,6 +1,8 @@
 import { Form, NavLink, Outlet, useLoaderData, useNavigate } from "react-router";
 import { requireMember } from "~/auth/guards.server";
 import { membershipsOf, roleAtLeast } from "~/auth/users.server";
+// Only the loader uses the .server imports above; the component gets plain data, so no
+// server-only module reaches the browser bundle.
 import type { Role } from "~/db/schema.server";
 import { ErrorBoundary as SharedErrorBoundary } from "~/components/ErrorPanel";
 import type { Route } from "./+types/console";
@@ -22,13 +24,14 @@ export async function loader({ request, context, params }: Route.LoaderArgs) {
     user: { email: user.email, login: user.login, name: user.name },
     tenant: { slug: tenant.slug, name: tenant.name },
     role,
+    sections: SECTIONS.filter((s) => roleAtLeast(role, s.role)),
     tenants: tenants.map((t) => ({ slug: t.slug, name: t.name, role: t.role })),
     fakeServices: context.github.fake,
   };
 }
 
 export default function Console() {
-  const { user, tenant, role, tenants, fakeServices } = useLoaderData<typeof loader>();
+  const { user, tenant, role, sections, tenants, fakeServices } = useLoaderData<typeof loader>();
   const navigate = useNavigate();
   return (
     <div className="flex min-h-screen flex-col">
@@ -57,7 +60,7 @@ export default function Console() {
             </select>
           </label>
           <nav aria-label="Console sections" className="flex flex-wrap gap-1">
-            {SECTIONS.filter((s) => roleAtLeast(role, s.role)).map((s) => (
+            {sections.map((s) => (
               <NavLink
                 key={s.path}
                 to={`/t/${tenant.slug}/${s.path}`}

@@ -40,9 +40,9 @@ export default function Home() {
           <WeirMark className="h-7 w-11" />
           <span className="text-xl font-semibold tracking-tight text-river-50">Weir</span>
         </div>
-        <span className="rounded-full border border-river-700 px-3 py-1 text-sm text-river-300">
-          Operator console coming
-        </span>
+        <a href="/console" className="rounded-md bg-sand-300 px-3.5 py-2 text-sm font-medium text-river-950 hover:bg-sand-200">
+          Open the console
+        </a>
       </header>
 
       <main>
@@ -119,11 +119,12 @@ export default function Home() {
 
         <section aria-labelledby="status" className="border-t border-river-800 py-14">
           <h2 id="status" className="text-sm font-semibold uppercase tracking-widest text-sand-300">
-            Status
+            Where to start
           </h2>
           <p className="mt-6 max-w-2xl leading-relaxed text-river-200">
-            Early. The operator console is coming. Today this node serves this page and a
-            health check at{" "}
+            Collectors and scripts post flows to <code className="font-mono text-sand-200">POST /api/v1/flows</code> and ask
+            questions at <code className="font-mono text-sand-200">/api/v1/estimate</code> with an API key; people sign in to
+            the console with GitHub to slice traffic, watch intake and manage keys and members. Operators can check this node at{" "}
             <a
               href="/healthz"
               className="font-mono text-sand-300 underline underline-offset-4 hover:text-sand-200"

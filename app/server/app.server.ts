@@ -12,7 +12,9 @@ import { runMigrations } from "../db/migrate.server";
 import { loadEnv, type Env } from "../env.server";
 import { createLogger, type Logger } from "../logger.server";
 import { ReservoirManager } from "../ingest/manager.server";
+import { ParsePool } from "../ingest/parse-pool.server";
 import type { GitHubConfig } from "../auth/github.server";
+import { createMail, type Mail } from "../mail.server";
 import type { UniformSource } from "../sampling/uniform";
 
 declare module "react-router" {
@@ -24,7 +26,9 @@ declare module "react-router" {
     env: Env;
     logger: Logger;
     manager: ReservoirManager;
+    parsePool: ParsePool;
     github: GitHubConfig;
+    mail: Mail;
   }
 }
 
@@ -54,7 +58,9 @@ export interface WeirServer {
   env: Env;
   logger: Logger;
   manager: ReservoirManager;
+  parsePool: ParsePool;
   github: GitHubConfig;
+  mail: Mail;
   /** Stops accepting connections, lets in-flight requests finish, then closes the database. */
   close(): Promise<void>;
 }
@@ -71,9 +77,11 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
 
   const db = await createDb(env.DATABASE_URL, env.DATABASE_AUTH_TOKEN);
   let vite: ViteDevServer | undefined;
+  let parsePool: ParsePool | undefined;
   const fakes: { close(): Promise<void> }[] = [];
   try {
     const github = await githubConfig(env, fakes, logger);
+    const mail = await mailService(env, fakes, logger);
     await runMigrations(db);
     logger.info("database migrated");
     const manager = new ReservoirManager(db, {
@@ -81,6 +89,8 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
       uniform: options.uniform,
       idempotencyTtlMs: env.IDEMPOTENCY_TTL_HOURS * 3600_000,
     });
+    // Started here, not in route code: the route bundle cannot point at a worker file.
+    const pool = (parsePool = await ParsePool.start({ size: env.INGEST_PARSE_WORKERS, logger }));
 
     const app = express();
     app.disable("x-powered-by");
@@ -112,7 +122,7 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
       createRequestHandler({
         build,
         mode: production ? "production" : "development",
-        getLoadContext: () => ({ db, env, logger, manager, github }),
+        getLoadContext: () => ({ db, env, logger, manager, parsePool: pool, github, mail }),
       }),
     );
     app.use(lastResortErrorHandler(logger));
@@ -123,12 +133,14 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
 
     let closing: Promise<void> | undefined;
     const close = () => {
-      closing ??= shutDown(httpServer, vite, db, logger, manager).then(() => closeAll(fakes));
+      // The pool closes after shutDown has drained the HTTP server, so no request loses its parser.
+      closing ??= shutDown(httpServer, vite, db, logger, manager).then(() => pool.close()).then(() => closeAll(fakes));
       return closing;
     };
-    return { url, port, httpServer, app, db, env, logger, manager, github, close };
+    return { url, port, httpServer, app, db, env, logger, manager, parsePool: pool, github, mail, close };
   } catch (error) {
     await vite?.close();
+    await parsePool?.close();
     await closeAll(fakes);
     closeDb(db);
     throw error;
@@ -150,6 +162,20 @@ async function githubConfig(env: Env, fakes: { close(): Promise<void> }[], logge
   fakes.push(fake);
   logger.info({ url: fake.url }, "fake GitHub started for development sign-in");
   return { clientId: "weir-dev", clientSecret: "weir-dev-secret", oauthUrl: fake.url, apiUrl: fake.url, fake: true };
+}
+
+/**
+ * Outgoing mail: the configured SMTP relay; otherwise (never in production, which requires
+ * SMTP_URL) a local fake SMTP server that catches messages for /dev/mail and tests.
+ */
+async function mailService(env: Env, fakes: { close(): Promise<void> }[], logger: Logger): Promise<Mail> {
+  if (env.SMTP_URL) return createMail({ smtpUrl: env.SMTP_URL, from: env.MAIL_FROM });
+  if (env.NODE_ENV === "production") throw new Error("SMTP_URL is required in production");
+  const { startFakeSmtp } = await import("../../scripts/fakes/smtp");
+  const fake = await startFakeSmtp();
+  fakes.push(fake);
+  logger.info({ port: fake.port }, "fake SMTP server started for development mail");
+  return createMail({ fake, from: env.MAIL_FROM });
 }
 
 async function closeAll(fakes: { close(): Promise<void> }[]): Promise<void> {

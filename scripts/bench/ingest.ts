@@ -1,13 +1,17 @@
 // Ingest over HTTP on loopback against (a) the ceiling of parsing and
-// validating the same bodies and (b) keeping every record in a plain table.
+// validating the same bodies with the server's own machinery (its parse-worker
+// pool, the same size and concurrency) and (b) keeping every record in a plain table.
 import { mkdtempSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { createApiKey } from "~/auth/api-keys.server";
 import { closeDb, createDb } from "~/db/client.server";
 import { runMigrations } from "~/db/migrate.server";
-import { parseFlowBatch, type FlowRecord } from "~/flow/record";
-import { readRecordValues } from "~/ingest/body.server";
+import { parseEnv } from "~/env.server";
+import type { FlowRecord } from "~/flow/record";
+import { readFlowBatch } from "~/ingest/body.server";
+import { ParsePool } from "~/ingest/parse-pool.server";
+import { createLogger } from "~/logger.server";
 import { createTenant, ensureCollector } from "~/tenants.server";
 import { benchRecords, toNdjsonLine } from "./data";
 import { insertAll, openKeepAll } from "./keep-all";
@@ -22,6 +26,7 @@ export interface IngestBench {
   weirBytes: number;
   keepAllBytes: number;
   windows: number;
+  parseWorkers: number;
 }
 
 const LIMITS = { maxBodyBytes: 64 * 1024 * 1024, maxRecords: 100_000 };
@@ -42,14 +47,24 @@ export async function benchIngest(total = 2_000_000, batch = 5_000, concurrency 
     const bodies: string[] = [];
     for (let i = 0; i < total; i += batch) bodies.push(records.slice(i, i + batch).map(toNdjsonLine).join("\n"));
 
-    // Ceiling: the route's own body reading, parsing and validation, nothing else.
+    // Ceiling: the route's own body reading, parsing and validation through a pool of the
+    // size the server gets (the same environment), at the same concurrency; nothing else.
+    const parseWorkers = parseEnv(process.env).INGEST_PARSE_WORKERS;
+    console.log(`parse workers          ${parseWorkers}   (INGEST_PARSE_WORKERS; the server and the ceiling alike)`);
+    const pool = await ParsePool.start({ size: parseWorkers, logger: createLogger("silent") });
+    let nextCeiling = 0;
     const ceilingStart = performance.now();
-    for (const body of bodies) {
-      const request = new Request("http://bench.invalid/api/v1/flows", { method: "POST", headers: { "content-type": "application/x-ndjson" }, body });
-      const parsed = parseFlowBatch(await readRecordValues(request, LIMITS));
-      if (!parsed.ok) throw new Error("benchmark data failed validation");
-    }
+    await Promise.all(
+      Array.from({ length: concurrency }, async () => {
+        while (nextCeiling < bodies.length) {
+          const body = bodies[nextCeiling++];
+          const request = new Request("http://bench.invalid/api/v1/flows", { method: "POST", headers: { "content-type": "application/x-ndjson" }, body });
+          await readFlowBatch(request, LIMITS, pool);
+        }
+      }),
+    );
     const ceilingSeconds = (performance.now() - ceilingStart) / 1000;
+    await pool.close();
 
     closeDb(db);
     const server = await startChildServer(`file:${weirPath}`);
@@ -93,6 +108,7 @@ export async function benchIngest(total = 2_000_000, batch = 5_000, concurrency 
       weirBytes: databaseBytes(weirPath),
       keepAllBytes: databaseBytes(join(dir, "keep-all.db")),
       windows,
+      parseWorkers,
     };
   } finally {
     rmSync(dir, { recursive: true, force: true });

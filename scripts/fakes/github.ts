@@ -44,6 +44,12 @@ export async function startFakeGitHub(options: { host?: string; port?: number; a
 
   async function handle(req: IncomingMessage, res: ServerResponse) {
     const url = new URL(req.url ?? "/", "http://fake.invalid");
+    // Browsers ask every host for an icon; an empty answer keeps their consoles clean.
+    if (url.pathname === "/favicon.ico") {
+      res.writeHead(204);
+      res.end();
+      return;
+    }
     if (req.method === "GET" && url.pathname === "/login/oauth/authorize") {
       const redirect = url.searchParams.get("redirect_uri");
       const state = url.searchParams.get("state");

@@ -214,7 +214,7 @@ describe("demo seed refusals", () => {
       execFile(
         process.execPath,
         ["--import", "tsx", "scripts/seed.ts"],
-        { cwd: ROOT, env: { ...process.env, NODE_ENV: "production", SESSION_SECRET: "s".repeat(32), GITHUB_CLIENT_ID: "Iv1.0123456789abcdef", GITHUB_CLIENT_SECRET: "0".repeat(40), DATABASE_URL: `file:${path}` } },
+        { cwd: ROOT, env: { ...process.env, NODE_ENV: "production", SESSION_SECRET: "s".repeat(32), GITHUB_CLIENT_ID: "Iv1.0123456789abcdef", GITHUB_CLIENT_SECRET: "0".repeat(40), SMTP_URL: "smtp://mail.example.com:587", DATABASE_URL: `file:${path}` } },
         (error, _stdout, stderr) => resolve({ code: error ? Number(error.code) : 0, stderr }),
       );
     });

@@ -1,6 +1,6 @@
 import fc from "fast-check";
 import { describe, expect, it } from "vitest";
-import { decodeKeptRow, encodeKeptRows, KEPT_ROW_BYTES, keptRowsToColumns } from "~/ingest/kept-codec";
+import { decodeKeptRow, encodeKeptRows, KEPT_ROW_BYTES, keptRowsToColumns, packFlowRecords } from "~/ingest/kept-codec";
 import type { FlowRecord } from "~/flow/record";
 
 // The stored row layout must give back every field exactly, counters up to
@@ -48,6 +48,18 @@ describe("kept-record rows", () => {
           expect(c.dport[i]).toBe(r.record.dport);
           expect(Number.isNaN(c.start[i]) ? null : c.start[i]).toBe(r.record.start);
         });
+      }),
+    );
+  });
+
+  it("pack validated records as rows of priority and weight zero", () => {
+    fc.assert(
+      fc.property(fc.array(record, { maxLength: 20 }), (records) => {
+        const { rows, count } = packFlowRecords(records);
+        expect(count).toBe(records.length);
+        expect(rows.byteLength).toBe(records.length * KEPT_ROW_BYTES);
+        expect(rows).toEqual(encodeKeptRows(records.map((r) => ({ priority: 0, weight: 0, record: r }))));
+        records.forEach((r, i) => expect(decodeKeptRow(rows, i * KEPT_ROW_BYTES)).toEqual({ priority: 0, weight: 0, record: r }));
       }),
     );
   });

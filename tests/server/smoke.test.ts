@@ -138,12 +138,17 @@ describe("parseEnv", () => {
       expect((error as EnvError).message).toMatch(/SESSION_SECRET: must be at least 32 characters/);
       expect((error as EnvError).message).not.toContain(secret);
     }
-    const github = { GITHUB_CLIENT_ID: "Iv1.0123456789abcdef", GITHUB_CLIENT_SECRET: "0".repeat(40) };
+    const github = { GITHUB_CLIENT_ID: "Iv1.0123456789abcdef", GITHUB_CLIENT_SECRET: "0".repeat(40), SMTP_URL: "smtp://mail.example.com:587" };
     expect(parseEnv({ NODE_ENV: "production", SESSION_SECRET: "x".repeat(32), ...github }).NODE_ENV).toBe("production");
   });
 
   it("requires GitHub OAuth credentials in production, where no fake sign-in exists", () => {
     expect(() => parseEnv({ NODE_ENV: "production", SESSION_SECRET: "x".repeat(32) })).toThrow(/GITHUB_CLIENT_ID: must be set in production/);
     expect(() => parseEnv({ GITHUB_CLIENT_ID: "Iv1.0123456789abcdef" })).toThrow(/GITHUB_CLIENT_SECRET: GITHUB_CLIENT_ID and GITHUB_CLIENT_SECRET go together/);
+  });
+
+  it("requires an SMTP relay in production, where no fake mail server exists", () => {
+    const rest = { NODE_ENV: "production", SESSION_SECRET: "x".repeat(32), GITHUB_CLIENT_ID: "Iv1.0123456789abcdef", GITHUB_CLIENT_SECRET: "0".repeat(40) };
+    expect(() => parseEnv(rest)).toThrow(/SMTP_URL: must be set in production/);
   });
 });

@@ -1,0 +1,171 @@
+import type { IntakeCollector, IntakeSnapshot, OpenReservoir } from "~/routes/console.intake-data";
+import { counterValue, exactMetric, formatBytes, formatMetric, formatUtc } from "~/slice/format";
+
+const timeOfDay = (ms: number) => new Date(ms).toISOString().slice(11, 16);
+
+/** An age in words, measured on the server's clock. */
+function age(now: number, then: number): string {
+  const s = Math.max(0, Math.round((now - then) / 1000));
+  if (s < 90) return `${s} s ago`;
+  const min = Math.round(s / 60);
+  if (min < 90) return `${min} min ago`;
+  const h = Math.round(min / 60);
+  if (h < 48) return `${h} h ago`;
+  return `${Math.round(h / 24)} days ago`;
+}
+
+const rate = (perSecond: number) => perSecond.toLocaleString("en-US", { minimumFractionDigits: 1, maximumFractionDigits: 1 });
+
+function windowLength(seconds: number): string {
+  return seconds % 3600 === 0 ? `${seconds / 3600} h` : `${seconds / 60} min`;
+}
+
+/** Ingest health per collector: rate, exact bytes per window, fill and τ of the open window, last seen. */
+export function IntakeTable({ snapshot }: { snapshot: IntakeSnapshot }) {
+  const { windows, collectors, now } = snapshot;
+  const open = windows[windows.length - 1];
+  const windowMs = snapshot.windowSeconds * 1000;
+  const totals = windows.map((_, i) => collectors.reduce((sum, c) => sum + BigInt(c.windows[i].bytes), 0n));
+  const totalRate = collectors.reduce((sum, c) => sum + c.recordsPerSecond, 0);
+  const quiet = collectors.filter((c) => c.quiet).length;
+
+  return (
+    <div className="flex flex-col gap-3">
+      <p className="text-sm text-river-300">
+        Windows of {windowLength(snapshot.windowSeconds)} · k = {snapshot.sampleSize} per reservoir · weight: {snapshot.weightAttribute} · open window{" "}
+        {timeOfDay(open)}–{timeOfDay(open + windowMs)} UTC · as of {new Date(now).toISOString().slice(11, 19)} UTC
+        {quiet > 0 ? (
+          <>
+            {" "}
+            · <span className="text-sand-200">{quiet} quiet</span>
+          </>
+        ) : null}
+      </p>
+      <div className="overflow-x-auto">
+        <table className="w-full min-w-[60rem] text-sm">
+          <caption className="sr-only">
+            Ingest health per collector: records per second over the last {snapshot.rateSeconds} s, exact bytes of the last {windows.length} windows, reservoir
+            fill and threshold τ of the open window, and when the collector was last seen
+          </caption>
+          <thead>
+            <tr className="text-left text-xs text-river-300">
+              <th scope="col" rowSpan={2} className="py-2 pr-3 align-bottom font-medium">
+                Collector
+              </th>
+              <th scope="col" rowSpan={2} className="py-2 pr-3 text-right align-bottom font-medium">
+                Records/s
+                <span className="block font-normal">last {snapshot.rateSeconds} s</span>
+              </th>
+              <th scope="colgroup" colSpan={windows.length} className="border-b border-river-800 px-3 pt-2 pb-1 text-center font-medium">
+                Bytes per window (exact, UTC start)
+              </th>
+              <th scope="col" rowSpan={2} className="py-2 pr-3 pl-3 align-bottom font-medium">
+                Reservoir fill
+                <span className="block font-normal">open window, kept / k</span>
+              </th>
+              <th scope="col" rowSpan={2} className="py-2 pr-3 text-right align-bottom font-medium">
+                τ<span className="block font-normal">open window</span>
+              </th>
+              <th scope="col" rowSpan={2} className="py-2 align-bottom font-medium">
+                Last seen
+              </th>
+            </tr>
+            <tr className="border-b border-river-700 text-xs text-river-300">
+              {windows.map((start) => (
+                <th key={start} scope="col" className="px-3 py-1 text-right font-mono font-normal" title={formatUtc(start)}>
+                  {timeOfDay(start)}
+                  {start === open ? <span className="ml-1 font-sans text-sand-300">open</span> : null}
+                </th>
+              ))}
+            </tr>
+          </thead>
+          <tbody>
+            {collectors.map((c) => (
+              <CollectorRow key={c.name} c={c} snapshot={snapshot} />
+            ))}
+          </tbody>
+          {collectors.length > 1 ? (
+            <tfoot>
+              <tr className="border-t border-river-700 text-river-200">
+                <th scope="row" className="py-2 pr-3 text-left font-medium">
+                  All collectors
+                </th>
+                <td className="py-2 pr-3 text-right font-mono">{rate(totalRate)}</td>
+                {totals.map((bytes, i) => (
+                  <td key={windows[i]} className="px-3 py-2 text-right font-mono" title={exactMetric(bytes.toString(), "bytes")}>
+                    {formatBytes(Number(bytes))}
+                  </td>
+                ))}
+                <td colSpan={3} />
+              </tr>
+            </tfoot>
+          ) : null}
+        </table>
+      </div>
+      <p className="text-xs text-river-300">
+        Quiet: no batch for more than {snapshot.quietAfterWindows} windows ({windowLength(snapshot.quietAfterWindows * snapshot.windowSeconds)}), or never.
+        Records per second count the batches received; bytes per window count each record in the window of its start time, late ones included.
+      </p>
+    </div>
+  );
+}
+
+function CollectorRow({ c, snapshot }: { c: IntakeCollector; snapshot: IntakeSnapshot }) {
+  return (
+    <tr className="border-b border-river-800/70 align-top last:border-0">
+      <th scope="row" className="py-2 pr-3 text-left font-normal">
+        <span className={`font-mono ${c.quiet ? "text-river-300" : "text-river-50"}`}>{c.name}</span>
+        {c.quiet ? (
+          <span
+            className="ml-2 inline-flex rounded border border-sand-400/70 px-1.5 py-px text-[11px] font-semibold tracking-wide text-sand-200 uppercase"
+            title={c.lastSeenAt === null ? "Never sent a batch" : `No batch for more than ${snapshot.quietAfterWindows} windows`}
+          >
+            quiet
+          </span>
+        ) : null}
+      </th>
+      <td
+        className="py-2 pr-3 text-right font-mono text-river-100"
+        title={`${c.recordsLastMinute.toLocaleString("en-US")} records in ${c.batchesLastMinute} batch${c.batchesLastMinute === 1 ? "" : "es"} over the last ${snapshot.rateSeconds} s`}
+      >
+        {rate(c.recordsPerSecond)}
+      </td>
+      {c.windows.map((w) => (
+        <td key={w.start} className="px-3 py-2 text-right font-mono" title={`${exactMetric(w.bytes, "bytes")} in ${w.records.toLocaleString("en-US")} records`}>
+          <span className={counterValue(w.bytes) === 0 ? "text-river-400" : "text-river-100"}>{formatBytes(counterValue(w.bytes))}</span>
+          <span className="block text-xs text-river-300">{w.records.toLocaleString("en-US")} rec</span>
+        </td>
+      ))}
+      <td className="py-2 pr-3 pl-3">
+        {c.open.length === 0 ? <span className="text-river-300">no records yet</span> : c.open.map((r) => <Fill key={r.node} r={r} showNode={c.open.length > 1} />)}
+      </td>
+      <td className="py-2 pr-3 text-right font-mono">
+        {c.open.length === 0
+          ? "—"
+          : c.open.map((r) => (
+              <span key={r.node} className="block" title={r.tau === 0 ? "τ = 0: at most k records so far, every one kept" : exactMetric(r.tau, snapshot.weightAttribute)}>
+                {r.tau === 0 ? "0" : formatMetric(r.tau, snapshot.weightAttribute)}
+              </span>
+            ))}
+      </td>
+      <td className="py-2 text-river-200">
+        {c.lastSeenAt === null ? <span className="text-sand-200">never</span> : <span title={formatUtc(c.lastSeenAt)}>{age(snapshot.now, c.lastSeenAt)}</span>}
+      </td>
+    </tr>
+  );
+}
+
+function Fill({ r, showNode }: { r: OpenReservoir; showNode: boolean }) {
+  const fraction = r.k > 0 ? Math.min(1, r.kept / r.k) : 0;
+  return (
+    <div className="flex items-center gap-2" title={`${r.kept} of k = ${r.k} kept from ${r.records.toLocaleString("en-US")} records${showNode ? ` on node ${r.node}` : ""}`}>
+      <div aria-hidden="true" className="h-2 w-24 overflow-hidden rounded-full bg-river-800">
+        <div className="h-full rounded-full bg-sand-300" style={{ width: `${(fraction * 100).toFixed(1)}%` }} />
+      </div>
+      <span className="font-mono text-xs text-river-100">
+        {r.kept}/{r.k}
+      </span>
+      {showNode ? <span className="text-xs text-river-300">{r.node}</span> : null}
+    </div>
+  );
+}

@@ -1,0 +1,324 @@
+import { useEffect, useId, useState, type ReactNode } from "react";
+import { Button, inputClass } from "~/components/ui";
+import { DEFAULT_TOP, GROUP_BY, MAX_TOP, METRICS, type GroupByKind, type Metric } from "~/query/request";
+import { checkPortChip, checkPrefixChip, checkProtocolChip, COMMON_PROTOCOLS, protocolLabel } from "~/slice/chips";
+import { RANGE_PRESETS, resolveRange, type RangePreset, type SliceRange, type SliceState } from "~/slice/query-state";
+import { ChipInput } from "./ChipInput";
+
+const GROUP_LABELS: Record<GroupByKind, string> = {
+  src: "Source prefix",
+  dst: "Destination prefix",
+  sport: "Source port",
+  dport: "Destination port",
+  proto: "Protocol",
+  collector: "Collector",
+  window: "Window",
+};
+
+const METRIC_LABELS: Record<Metric, string> = { bytes: "Bytes", packets: "Packets", flows: "Flows (records)" };
+
+interface SliceFormProps {
+  state: SliceState;
+  onChange(next: SliceState): void;
+  collectors: string[];
+  weightAttribute: "bytes" | "packets";
+}
+
+/** The question builder. Every change is applied at once (the page keeps it in the URL). */
+export function SliceForm({ state, onChange, collectors, weightAttribute }: SliceFormProps) {
+  const set = <K extends keyof SliceState>(key: K, value: SliceState[K]) => onChange({ ...state, [key]: value });
+  const setList = (field: keyof SliceState["lists"], values: string[]) => onChange({ ...state, lists: { ...state.lists, [field]: values } });
+
+  const commonNumbers: string[] = COMMON_PROTOCOLS.map((p) => String(p.number));
+  const otherProtocols = state.lists.proto.filter((p) => !commonNumbers.includes(p));
+
+  return (
+    <form className="flex flex-col gap-5" onSubmit={(e) => e.preventDefault()} aria-label="Slice question">
+      <TimeRange range={state.range} onChange={(range) => set("range", range)} />
+
+      <Section title="Source">
+        <ChipInput label="Source in" values={state.lists.src} onChange={(v) => setList("src", v)} check={checkPrefixChip} placeholder="198.51.100.0/24" />
+        <ChipInput label="Source not in" values={state.lists.srcExclude} onChange={(v) => setList("srcExclude", v)} check={checkPrefixChip} placeholder="2001:db8:ff::/48" />
+      </Section>
+
+      <Section title="Destination">
+        <ChipInput label="Destination in" values={state.lists.dst} onChange={(v) => setList("dst", v)} check={checkPrefixChip} placeholder="203.0.113.0/24" />
+        <ChipInput label="Destination not in" values={state.lists.dstExclude} onChange={(v) => setList("dstExclude", v)} check={checkPrefixChip} placeholder="192.0.2.0/25" />
+      </Section>
+
+      <Section title="Ports and protocols">
+        <ChipInput label="Source ports" values={state.lists.sport} onChange={(v) => setList("sport", v)} check={checkPortChip} placeholder="1024-65535" />
+        <ChipInput label="Destination ports" values={state.lists.dport} onChange={(v) => setList("dport", v)} check={checkPortChip} placeholder="443" />
+        <fieldset className="flex flex-col gap-1.5">
+          <legend className="mb-1.5 text-sm font-medium text-river-100">Protocols</legend>
+          <div className="flex flex-wrap gap-x-4 gap-y-1">
+            {COMMON_PROTOCOLS.map((p) => {
+              const value = String(p.number);
+              const on = state.lists.proto.includes(value);
+              return (
+                <label key={p.number} className="inline-flex items-center gap-1.5 text-sm text-river-100">
+                  <input
+                    type="checkbox"
+                    checked={on}
+                    onChange={() => setList("proto", on ? state.lists.proto.filter((x) => x !== value) : [...state.lists.proto, value])}
+                    className="accent-sand-300"
+                  />
+                  {p.name} <span className="font-mono text-xs text-river-300">{p.number}</span>
+                </label>
+              );
+            })}
+          </div>
+          <ChipInput
+            label="Other protocol numbers"
+            values={otherProtocols}
+            onChange={(others) => setList("proto", [...state.lists.proto.filter((p) => commonNumbers.includes(p)), ...others])}
+            check={checkProtocolChip}
+            display={protocolLabel}
+            placeholder="47"
+            hint="IANA protocol numbers 0–255. None chosen: every protocol."
+          />
+        </fieldset>
+      </Section>
+
+      <Collectors known={collectors} chosen={state.lists.collectors} onChange={(v) => setList("collectors", v)} />
+
+      <Section title="Measure">
+        <LabeledSelect
+          label="Metric"
+          value={state.metric ?? ""}
+          onChange={(v) => set("metric", v === "" ? null : (v as Metric))}
+          options={[["", `Tenant's weight: ${weightAttribute}`], ...METRICS.map((m) => [m, METRIC_LABELS[m]] as [string, string])]}
+        />
+        <LabeledSelect
+          label="Group by"
+          value={state.groupBy ?? ""}
+          onChange={(v) => set("groupBy", v === "" ? null : (v as GroupByKind))}
+          options={[["", "No grouping"], ...GROUP_BY.map((g) => [g, GROUP_LABELS[g]] as [string, string])]}
+        />
+        {state.groupBy === "src" || state.groupBy === "dst" ? (
+          <div className="grid grid-cols-2 gap-3">
+            <NumberField
+              label="IPv4 prefix length"
+              value={state.prefixLength.ipv4}
+              min={0}
+              max={32}
+              prefix="/"
+              onCommit={(n) => set("prefixLength", { ...state.prefixLength, ipv4: n })}
+            />
+            <NumberField
+              label="IPv6 prefix length"
+              value={state.prefixLength.ipv6}
+              min={0}
+              max={128}
+              prefix="/"
+              onCommit={(n) => set("prefixLength", { ...state.prefixLength, ipv6: n })}
+            />
+          </div>
+        ) : null}
+        {state.groupBy !== null ? (
+          <NumberField label="Top N groups" value={state.top} min={1} max={MAX_TOP} onCommit={(n) => set("top", n)} hint={`The largest groups by estimate; default ${DEFAULT_TOP}.`} />
+        ) : null}
+      </Section>
+    </form>
+  );
+}
+
+function Section({ title, children }: { title: string; children: ReactNode }) {
+  return (
+    <fieldset className="flex flex-col gap-2.5 border-t border-river-800 pt-3">
+      <legend className="pr-2 text-xs font-semibold tracking-wide text-sand-300 uppercase">{title}</legend>
+      {children}
+    </fieldset>
+  );
+}
+
+function LabeledSelect({ label, value, onChange, options }: { label: string; value: string; onChange(v: string): void; options: [string, string][] }) {
+  const id = useId();
+  return (
+    <div className="flex flex-col gap-1">
+      <label htmlFor={id} className="text-sm font-medium text-river-100">
+        {label}
+      </label>
+      <select id={id} value={value} onChange={(e) => onChange(e.target.value)} className={inputClass}>
+        {options.map(([v, text]) => (
+          <option key={v} value={v}>
+            {text}
+          </option>
+        ))}
+      </select>
+    </div>
+  );
+}
+
+/** A whole number applied on Enter or when focus leaves, so typing "128" does not ask three questions. */
+function NumberField({ label, value, min, max, onCommit, hint, prefix }: { label: string; value: number; min: number; max: number; onCommit(n: number): void; hint?: string; prefix?: string }) {
+  const id = useId();
+  const [text, setText] = useState(String(value));
+  useEffect(() => setText(String(value)), [value]);
+  const n = Number(text);
+  const valid = /^\d+$/.test(text.trim()) && n >= min && n <= max;
+  const commit = () => {
+    if (valid && n !== value) onCommit(n);
+  };
+  return (
+    <div className="flex flex-col gap-1">
+      <label htmlFor={id} className="text-sm font-medium text-river-100">
+        {label}
+      </label>
+      <div className="flex items-center gap-1">
+        {prefix ? <span className="font-mono text-river-300" aria-hidden="true">{prefix}</span> : null}
+        <input
+          id={id}
+          type="number"
+          inputMode="numeric"
+          min={min}
+          max={max}
+          value={text}
+          aria-invalid={!valid}
+          aria-describedby={`${id}-note`}
+          onChange={(e) => setText(e.target.value)}
+          onBlur={commit}
+          onKeyDown={(e) => {
+            if (e.key === "Enter") {
+              e.preventDefault();
+              commit();
+            }
+          }}
+          className={`${inputClass} w-full font-mono`}
+        />
+      </div>
+      <p id={`${id}-note`} className={`text-xs ${valid ? "text-river-300" : "text-red-300"}`}>
+        {valid ? hint : `A whole number from ${min} to ${max}.`}
+      </p>
+    </div>
+  );
+}
+
+function Collectors({ known, chosen, onChange }: { known: string[]; chosen: string[]; onChange(v: string[]): void }) {
+  // A shared link may name a collector this tenant does not have; keep it visible so it can be removed.
+  const names = [...known, ...chosen.filter((c) => !known.includes(c))];
+  return (
+    <fieldset className="flex flex-col gap-2 border-t border-river-800 pt-4">
+      <legend className="pr-2 text-xs font-semibold tracking-wide text-sand-300 uppercase">Collectors</legend>
+      {names.length === 0 ? (
+        <p className="text-sm text-river-300">This tenant has no collectors yet.</p>
+      ) : (
+        <div className="flex max-h-44 flex-col gap-1 overflow-y-auto pr-1">
+          {names.map((name) => {
+            const on = chosen.includes(name);
+            return (
+              <label key={name} className="inline-flex items-center gap-2 text-sm text-river-100">
+                <input type="checkbox" checked={on} onChange={() => onChange(on ? chosen.filter((c) => c !== name) : [...chosen, name])} className="accent-sand-300" />
+                <span className="font-mono">{name}</span>
+                {known.includes(name) ? null : <span className="text-xs text-red-300">not a collector of this tenant</span>}
+              </label>
+            );
+          })}
+        </div>
+      )}
+      <p className="text-xs text-river-300">{chosen.length === 0 ? "None chosen: every collector." : `${chosen.length} chosen.`}</p>
+    </fieldset>
+  );
+}
+
+const toInput = (ms: number) => new Date(ms).toISOString().slice(0, 16);
+const fromInput = (text: string): number | null => {
+  if (!/^\d{4}-\d{2}-\d{2}T\d{2}:\d{2}(:\d{2})?$/.test(text)) return null;
+  const ms = Date.parse(`${text}${text.length === 16 ? ":00" : ""}Z`);
+  return Number.isFinite(ms) ? ms : null;
+};
+
+/** Presets, or a custom range typed in UTC (the browser's datetime inputs carry no timezone: Weir reads them as UTC). */
+function TimeRange({ range, onChange }: { range: SliceRange; onChange(r: SliceRange): void }) {
+  const id = useId();
+  const custom = !("preset" in range);
+  const [editing, setEditing] = useState(custom);
+  const [from, setFrom] = useState(custom ? toInput(range.from) : "");
+  const [to, setTo] = useState(custom ? toInput(range.to) : "");
+  const [error, setError] = useState<string | null>(null);
+  // Follows the URL (back button, a pasted link) without clobbering what is being typed.
+  const appliedFrom = custom ? range.from : null;
+  const appliedTo = custom ? range.to : null;
+  useEffect(() => {
+    if (appliedFrom !== null && appliedTo !== null) {
+      setFrom(toInput(appliedFrom));
+      setTo(toInput(appliedTo));
+      setEditing(true);
+    }
+  }, [appliedFrom, appliedTo]);
+
+  function chooseCustom() {
+    if (!from || !to) {
+      const r = resolveRange("preset" in range ? range : { preset: "24h" }, Date.now());
+      setFrom(toInput(r.from));
+      setTo(toInput(r.to));
+    }
+    setEditing(true);
+  }
+
+  function apply() {
+    const f = fromInput(from);
+    const t = fromInput(to);
+    if (f === null || t === null) return setError("Give both From and To as a date and time (UTC).");
+    if (t <= f) return setError("To must be after From.");
+    if (t - f > 400 * 86_400_000) return setError("One question covers at most 400 days; split a longer range.");
+    setError(null);
+    onChange({ from: f, to: t });
+  }
+
+  const selected = editing ? "custom" : "preset" in range ? range.preset : "custom";
+  return (
+    <fieldset className="flex flex-col gap-3">
+      <legend className="mb-2 text-xs font-semibold tracking-wide text-sand-300 uppercase">Time range (UTC)</legend>
+      <div role="radiogroup" aria-label="Time range" className="grid grid-cols-5 gap-1 rounded-md border border-river-700 p-1">
+        {(Object.keys(RANGE_PRESETS) as RangePreset[]).map((p) => (
+          <RangeChoice key={p} name={id} checked={selected === p} onSelect={() => {
+              setEditing(false);
+              onChange({ preset: p });
+            }} label={p} title={RANGE_PRESETS[p].label} />
+        ))}
+        <RangeChoice name={id} checked={selected === "custom"} onSelect={chooseCustom} label="Custom" title="From and to, in UTC" />
+      </div>
+      {selected === "custom" ? (
+        <div className="flex flex-col gap-2">
+          <div className="grid grid-cols-2 gap-2">
+            <label className="flex flex-col gap-1 text-sm text-river-100">
+              From (UTC)
+              <input type="datetime-local" value={from} onChange={(e) => setFrom(e.target.value)} className={`${inputClass} px-2 font-mono text-xs`} />
+            </label>
+            <label className="flex flex-col gap-1 text-sm text-river-100">
+              To (UTC)
+              <input type="datetime-local" value={to} onChange={(e) => setTo(e.target.value)} className={`${inputClass} px-2 font-mono text-xs`} />
+            </label>
+          </div>
+          <div className="flex items-center gap-3">
+            <Button type="button" tone="quiet" onClick={apply}>
+              Apply range
+            </Button>
+            {error ? (
+              <p role="alert" className="text-xs text-red-300">
+                {error}
+              </p>
+            ) : null}
+          </div>
+        </div>
+      ) : null}
+      <p className="text-xs text-river-300">Windows whose start lies in the range count. Times are UTC throughout.</p>
+    </fieldset>
+  );
+}
+
+function RangeChoice({ name, checked, onSelect, label, title }: { name: string; checked: boolean; onSelect(): void; label: string; title: string }) {
+  return (
+    <label
+      title={title}
+      className={`cursor-pointer rounded px-1 py-1 text-center text-sm has-[:focus-visible]:outline-2 has-[:focus-visible]:outline-sand-300 ${
+        checked ? "bg-sand-300 font-medium text-river-950" : "text-river-200 hover:bg-river-800"
+      }`}
+    >
+      <input type="radio" name={name} checked={checked} onChange={onSelect} className="sr-only" />
+      <span aria-hidden="true">{label}</span>
+      <span className="sr-only">{title}</span>
+    </label>
+  );
+}

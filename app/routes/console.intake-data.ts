@@ -1,0 +1,148 @@
+import type { InValue } from "@libsql/client";
+import { requireMember } from "~/auth/guards.server";
+import type { Db } from "~/db/client.server";
+import { windowStartOf } from "~/ingest/window";
+import { counterJson, type Counter } from "~/query/answer";
+import type { Route } from "./+types/console.intake-data";
+
+/** How far back "records per second" looks, in ingest batches received. */
+const RATE_SECONDS = 60;
+/** Windows shown per collector: the open one and the ones before it. */
+const WINDOWS_SHOWN = 4;
+/** A collector not seen for more than this many windows (or never) is quiet. */
+const QUIET_AFTER_WINDOWS = 2;
+
+export interface IntakeWindow {
+  start: number;
+  /** Exact counters of every record of the window (all nodes), as the reservoirs keep them. */
+  records: number;
+  bytes: Counter;
+  packets: Counter;
+}
+
+/** One reservoir of the open window: one per Weir node that sampled this collector. */
+export interface OpenReservoir {
+  node: string;
+  kept: number;
+  k: number;
+  tau: number;
+  records: number;
+}
+
+export interface IntakeCollector {
+  name: string;
+  lastSeenAt: number | null;
+  quiet: boolean;
+  recordsLastMinute: number;
+  batchesLastMinute: number;
+  recordsPerSecond: number;
+  /** Oldest first, the open window last; aligned with `IntakeSnapshot.windows`. */
+  windows: IntakeWindow[];
+  open: OpenReservoir[];
+}
+
+export interface IntakeSnapshot {
+  /** Server time of the snapshot, epoch ms: every age is measured from it, not the browser's clock. */
+  now: number;
+  windowSeconds: number;
+  sampleSize: number;
+  weightAttribute: "bytes" | "packets";
+  rateSeconds: number;
+  /** Windows without a batch after which a collector counts as quiet. */
+  quietAfterWindows: number;
+  /** Window starts shown, oldest first; the last is the open window. */
+  windows: number[];
+  collectors: IntakeCollector[];
+}
+
+/** GET /t/:tenant/intake-data: ingest health per collector, as JSON, for any member. */
+export async function loader({ request, context, params }: Route.LoaderArgs) {
+  const { tenant } = await requireMember(request, context, params.tenant);
+  const snapshot = await intakeSnapshot(context.db, tenant, Date.now());
+  return Response.json(snapshot, { headers: { "Cache-Control": "no-store" } });
+}
+
+/**
+ * Ingest health of one tenant at `now`. Every statement is confined to the tenant's id.
+ * Records per second come from the batches received in the last minute; counters per window
+ * are the reservoirs' exact ones summed over nodes; fill and τ are those of the open window
+ * (the current window of the tenant's window length).
+ */
+async function intakeSnapshot(
+  db: Db,
+  tenant: { id: number; windowSeconds: number; sampleSize: number; weightAttribute: "bytes" | "packets" },
+  now: number,
+): Promise<IntakeSnapshot> {
+  const windowMs = tenant.windowSeconds * 1000;
+  const open = windowStartOf(now, tenant.windowSeconds);
+  const windows = Array.from({ length: WINDOWS_SHOWN }, (_, i) => open - (WINDOWS_SHOWN - 1 - i) * windowMs);
+  const client = db.$client;
+  const run = (sql: string, args: InValue[]) => client.execute({ sql, args });
+
+  const [collectorRows, rateRows, reservoirRows] = await Promise.all([
+    run("SELECT id, name, last_seen_at FROM collectors WHERE tenant_id = ? ORDER BY name", [tenant.id]),
+    run(
+      "SELECT collector_id, SUM(record_count), COUNT(*) FROM ingest_batches WHERE tenant_id = ? AND received_at > ? AND received_at <= ? GROUP BY collector_id",
+      [tenant.id, now - RATE_SECONDS * 1000, now],
+    ),
+    run(
+      // Kept rows are counted only for the open window, the one whose fill is shown.
+      "SELECT r.collector_id, r.window_start, r.node, r.k, r.tau, r.records, r.bytes, r.packets, " +
+        "CASE WHEN r.window_start = ? THEN (SELECT COUNT(*) FROM kept_records k WHERE k.reservoir_id = r.id) END " +
+        "FROM reservoirs r WHERE r.tenant_id = ? AND r.window_seconds = ? AND r.window_start >= ? AND r.window_start <= ? " +
+        "ORDER BY r.window_start, r.node",
+      [open, tenant.id, tenant.windowSeconds, windows[0], open],
+    ),
+  ]);
+
+  const rates = new Map<number, { records: number; batches: number }>();
+  for (const row of rateRows.rows) rates.set(Number(row[0]), { records: Number(row[1]), batches: Number(row[2]) });
+
+  const perCollector = new Map<number, { windows: Map<number, { records: number; bytes: bigint; packets: bigint }>; open: OpenReservoir[] }>();
+  for (const row of reservoirRows.rows) {
+    const collectorId = Number(row[0]);
+    const start = Number(row[1]);
+    let entry = perCollector.get(collectorId);
+    if (!entry) perCollector.set(collectorId, (entry = { windows: new Map(), open: [] }));
+    const sums = entry.windows.get(start) ?? { records: 0, bytes: 0n, packets: 0n };
+    // Decimal text in SQLite: sums of unsigned 64-bit counters can pass its signed INTEGER.
+    sums.records += Number(row[5]);
+    sums.bytes += BigInt(String(row[6]));
+    sums.packets += BigInt(String(row[7]));
+    entry.windows.set(start, sums);
+    if (start === open) {
+      entry.open.push({ node: String(row[2]), k: Number(row[3]), tau: Number(row[4]), records: Number(row[5]), kept: Number(row[8]) });
+    }
+  }
+
+  const collectors: IntakeCollector[] = collectorRows.rows.map((row) => {
+    const id = Number(row[0]);
+    const lastSeenAt = row[2] === null ? null : Number(row[2]);
+    const rate = rates.get(id) ?? { records: 0, batches: 0 };
+    const entry = perCollector.get(id);
+    return {
+      name: String(row[1]),
+      lastSeenAt,
+      quiet: lastSeenAt === null || now - lastSeenAt > QUIET_AFTER_WINDOWS * windowMs,
+      recordsLastMinute: rate.records,
+      batchesLastMinute: rate.batches,
+      recordsPerSecond: rate.records / RATE_SECONDS,
+      windows: windows.map((start) => {
+        const sums = entry?.windows.get(start);
+        return { start, records: sums?.records ?? 0, bytes: counterJson(sums?.bytes ?? 0n), packets: counterJson(sums?.packets ?? 0n) };
+      }),
+      open: entry?.open ?? [],
+    };
+  });
+
+  return {
+    now,
+    windowSeconds: tenant.windowSeconds,
+    sampleSize: tenant.sampleSize,
+    weightAttribute: tenant.weightAttribute,
+    rateSeconds: RATE_SECONDS,
+    quietAfterWindows: QUIET_AFTER_WINDOWS,
+    windows,
+    collectors,
+  };
+}

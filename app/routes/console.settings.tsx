@@ -1,0 +1,277 @@
+import type { ReactNode } from "react";
+import { data, Form, useNavigation } from "react-router";
+import { requireMember } from "~/auth/guards.server";
+import { Button, ErrorState, Field, inputClass, PageHeader, Panel } from "~/components/ui";
+import { SETTING_LABELS, settingText, WINDOW_CHOICES, windowLabel, type SettingField } from "~/settings/fields";
+import { parseSettingsForm, reservoirShapes, updateTenantSettings } from "~/settings/settings.server";
+import type { Route } from "./+types/console.settings";
+
+export { ErrorBoundary } from "~/components/ErrorPanel";
+
+export const meta: Route.MetaFunction = () => [{ title: "Settings · Weir" }];
+
+export async function loader({ request, context, params }: Route.LoaderArgs) {
+  const { tenant } = await requireMember(request, context, params.tenant, "admin");
+  return {
+    tenant: { slug: tenant.slug, name: tenant.name },
+    settings: {
+      sampleSize: tenant.sampleSize,
+      windowSeconds: tenant.windowSeconds,
+      weightAttribute: tenant.weightAttribute,
+      retentionDays: tenant.retentionDays,
+    },
+    shapes: await reservoirShapes(context.db, tenant.id),
+  };
+}
+
+export async function action({ request, context, params }: Route.ActionArgs) {
+  const { user, tenant } = await requireMember(request, context, params.tenant, "admin");
+  const form = Object.fromEntries(await request.formData());
+  const parsed = parseSettingsForm(form);
+  if (!parsed.ok) {
+    const values = Object.fromEntries(Object.keys(SETTING_LABELS).map((f) => [f, typeof form[f] === "string" ? form[f] : ""])) as Record<SettingField, string>;
+    return data({ ok: false as const, fieldErrors: parsed.fieldErrors, values }, { status: 400 });
+  }
+  const changes = await updateTenantSettings(context.db, tenant, parsed.settings, { id: user.id, label: user.login ?? user.email });
+  return { ok: true as const, changes };
+}
+
+export default function Settings({ loaderData, actionData }: Route.ComponentProps) {
+  const { tenant, settings, shapes } = loaderData;
+  const navigation = useNavigation();
+  const saving = navigation.state === "submitting";
+  const failed = actionData && !actionData.ok ? actionData : undefined;
+  const errors: Partial<Record<SettingField, string>> = failed?.fieldErrors ?? {};
+  const shown = failed?.values ?? {
+    sampleSize: String(settings.sampleSize),
+    windowSeconds: String(settings.windowSeconds),
+    weightAttribute: settings.weightAttribute,
+    retentionDays: String(settings.retentionDays),
+  };
+  const error = (f: SettingField) => (errors[f] ? `${SETTING_LABELS[f]} ${errors[f]}.` : undefined);
+
+  return (
+    <>
+      <PageHeader title="Settings" lead={<>How Weir samples the flow records of {tenant.name}, and the tenant's retention setting.</>} />
+
+      {actionData?.ok ? <SavedNotice changes={actionData.changes} /> : null}
+      {failed ? (
+        <div className="mb-6">
+          <ErrorState
+            title="Not saved"
+            message={`Fix ${Object.keys(failed.fieldErrors).length === 1 ? "the marked field" : "the marked fields"}; nothing was changed.`}
+          />
+        </div>
+      ) : null}
+
+      <div className="grid gap-6 lg:grid-cols-[minmax(0,1fr)_22rem] lg:items-start">
+        <Panel title="Sampling and retention">
+          <p className="mb-6 rounded-md border-l-4 border-sand-400 bg-river-950 px-4 py-3 text-sm text-river-100">
+            A change applies to windows created from now on. Windows that already exist keep their own sample size k and length, and estimates over old and new
+            windows together stay unbiased: each reservoir is answered with its own k and τ.
+          </p>
+          {/* Remounted whenever the stored or the rejected values change, so the fields show them. */}
+          <Form key={JSON.stringify(shown)} method="post" noValidate className="flex flex-col gap-7">
+            <Setting
+              explain={
+                <>
+                  How many flow records each reservoir keeps, per collector and window (16–65 536). A larger k gives tighter 95% intervals and exact answers for
+                  more small windows, but stores more records and makes every question scan more of them.
+                </>
+              }
+            >
+              <Field label={SETTING_LABELS.sampleSize} htmlFor="sampleSize" error={error("sampleSize")}>
+                <input
+                  id="sampleSize"
+                  name="sampleSize"
+                  type="number"
+                  inputMode="numeric"
+                  min={16}
+                  max={65_536}
+                  step={1}
+                  defaultValue={shown.sampleSize}
+                  aria-invalid={errors.sampleSize ? true : undefined}
+                  className={`${inputClass} w-40 font-mono`}
+                />
+              </Field>
+            </Setting>
+
+            <Setting
+              explain={
+                <>
+                  The time bucket one reservoir covers. Shorter windows slice time more finely, so a question about 02:00–02:40 lines up with whole windows, but
+                  they make more reservoirs: up to k records per collector for every window.
+                </>
+              }
+            >
+              <Field label={SETTING_LABELS.windowSeconds} htmlFor="windowSeconds" error={error("windowSeconds")}>
+                <select
+                  id="windowSeconds"
+                  name="windowSeconds"
+                  defaultValue={shown.windowSeconds}
+                  aria-invalid={errors.windowSeconds ? true : undefined}
+                  className={`${inputClass} w-40`}
+                >
+                  {WINDOW_CHOICES.map((c) => (
+                    <option key={c.seconds} value={c.seconds}>
+                      {c.label}
+                    </option>
+                  ))}
+                </select>
+              </Field>
+            </Setting>
+
+            <Setting
+              explain={
+                <>
+                  What the sample favours: a record's priority is its weight divided by a random draw, so flows heavy in this measure are almost always kept.
+                  Bytes suits volume questions, packets suits packet-rate ones (many small packets). Every metric can still be estimated; the chosen one most
+                  precisely. A new weight applies to records received from now on, also in the window that is open; each kept record remembers the weight it was
+                  sampled with.
+                </>
+              }
+            >
+              <fieldset className="flex flex-col gap-1" aria-describedby={errors.weightAttribute ? "weightAttribute-error" : undefined}>
+                <legend className="mb-1 text-sm font-medium text-river-100">{SETTING_LABELS.weightAttribute}</legend>
+                <div className="flex gap-5">
+                  {(["bytes", "packets"] as const).map((w) => (
+                    <label key={w} className="flex items-center gap-2 text-sm text-river-100">
+                      <input type="radio" name="weightAttribute" value={w} defaultChecked={shown.weightAttribute === w} className="accent-sand-300" />
+                      {w}
+                    </label>
+                  ))}
+                </div>
+                {errors.weightAttribute ? (
+                  <p id="weightAttribute-error" role="alert" className="text-sm text-red-300">
+                    {error("weightAttribute")}
+                  </p>
+                ) : null}
+              </fieldset>
+            </Setting>
+
+            <Setting
+              explain={
+                <>
+                  The tenant's retention setting, in days (1–3650). A longer retention lets questions reach further back, at the cost of more storage and more
+                  personal data held.
+                </>
+              }
+              aside={
+                <p className="self-start rounded-md border-l-4 border-sand-400 bg-river-950 px-4 py-3 text-sm text-river-200">
+                  Flow records carry IP addresses and can be personal data. Keep them only as long as needed, and follow your data-protection policy and local
+                  law.
+                </p>
+              }
+            >
+              <Field label={SETTING_LABELS.retentionDays} htmlFor="retentionDays" error={error("retentionDays")}>
+                <span className="flex items-center gap-2">
+                  <input
+                    id="retentionDays"
+                    name="retentionDays"
+                    type="number"
+                    inputMode="numeric"
+                    min={1}
+                    max={3650}
+                    step={1}
+                    defaultValue={shown.retentionDays}
+                    aria-invalid={errors.retentionDays ? true : undefined}
+                    className={`${inputClass} w-40 font-mono`}
+                  />
+                  <span className="text-sm text-river-300">days</span>
+                </span>
+              </Field>
+            </Setting>
+
+            <div>
+              <Button type="submit" disabled={saving}>
+                {saving ? "Saving…" : "Save settings"}
+              </Button>
+            </div>
+          </Form>
+        </Panel>
+
+        <Panel title="Stored reservoirs">
+          <ReservoirShapes shapes={shapes} current={settings} />
+        </Panel>
+      </div>
+    </>
+  );
+}
+
+/** One setting: its field, the sentence on what it does and costs, and an optional note beside it. */
+function Setting({ children, explain, aside }: { children: ReactNode; explain: ReactNode; aside?: ReactNode }) {
+  return (
+    <div className={`grid gap-4 border-b border-river-800 pb-6 ${aside ? "md:grid-cols-[minmax(0,1fr)_minmax(0,18rem)]" : ""}`}>
+      <div className="flex flex-col gap-2">
+        {children}
+        <p className="max-w-2xl text-sm text-river-300">{explain}</p>
+      </div>
+      {aside}
+    </div>
+  );
+}
+
+function SavedNotice({ changes }: { changes: { field: SettingField; old: number | string; new: number | string }[] }) {
+  return (
+    <div role="status" className="mb-6 rounded-md border-l-4 border-sand-300 bg-river-900 px-4 py-3 text-sm text-river-100">
+      {changes.length === 0 ? (
+        <p>Saved: nothing had changed.</p>
+      ) : (
+        <>
+          <p className="font-medium text-sand-200">
+            {changes.some((c) => c.field === "sampleSize" || c.field === "windowSeconds")
+              ? "Saved. Windows created from now on use the new k and length."
+              : "Saved."}
+          </p>
+          <ul className="mt-1 list-inside list-disc text-river-200">
+            {changes.map((c) => (
+              <li key={c.field}>{`${SETTING_LABELS[c.field]}: ${settingText(c.field, c.old)} → ${settingText(c.field, c.new)}`}</li>
+            ))}
+          </ul>
+        </>
+      )}
+    </div>
+  );
+}
+
+function ReservoirShapes({
+  shapes,
+  current,
+}: {
+  shapes: { k: number; windowSeconds: number; reservoirs: number; firstWindowStart: number; lastWindowStart: number }[];
+  current: { sampleSize: number; windowSeconds: number };
+}) {
+  if (shapes.length === 0) {
+    return (
+      <p className="text-sm text-river-300">
+        No reservoirs yet. The first batch a collector sends creates one for each window it touches, with the settings of that moment.
+      </p>
+    );
+  }
+  return (
+    <>
+      <p className="mb-3 text-sm text-river-300">Each reservoir keeps the k and window length it was created with.</p>
+      <ul className="divide-y divide-river-800 border-y border-river-800">
+        {shapes.map((s) => (
+          <li key={`${s.k}:${s.windowSeconds}`} className="py-2.5 text-sm">
+            <p className="flex items-baseline justify-between gap-3">
+              <span className="text-river-50">
+                <span className="font-mono">{`k = ${s.k}`}</span>
+                <span className="text-river-300">{` · ${windowLabel(s.windowSeconds)}`}</span>
+              </span>
+              <span className="font-mono text-river-100">{`${s.reservoirs} reservoir${s.reservoirs === 1 ? "" : "s"}`}</span>
+            </p>
+            <p className="mt-0.5 font-mono text-xs whitespace-nowrap text-river-400">{`${utcDay(s.firstWindowStart)} – ${utcDay(s.lastWindowStart)}`}</p>
+            {s.k === current.sampleSize && s.windowSeconds === current.windowSeconds ? <p className="mt-0.5 text-xs text-sand-300">current settings</p> : null}
+          </li>
+        ))}
+      </ul>
+      <p className="mt-2 text-xs text-river-400">First and last window start, UTC.</p>
+    </>
+  );
+}
+
+/** Epoch ms as `YYYY-MM-DD HH:MM`, UTC, so server and browser render the same text. */
+function utcDay(ms: number): string {
+  return new Date(ms).toISOString().slice(0, 16).replace("T", " ");
+}

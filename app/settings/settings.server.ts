@@ -1,0 +1,101 @@
+import { asc, count, eq, max, min } from "drizzle-orm";
+import { z } from "zod";
+import { recordAudit } from "~/audit.server";
+import type { Db } from "~/db/client.server";
+import { reservoirs, tenants, WEIGHT_ATTRIBUTES } from "~/db/schema.server";
+import { newTenantSchema, sampleSizeSchema, windowSecondsSchema } from "~/tenants.server";
+import { SETTING_LABELS, type SettingField, type TenantSettings } from "./fields";
+
+/** A whole number as a form posts it (text), checked by the tenant schema that owns its bounds. */
+const wholeNumber = (inner: z.ZodType<number, number>) =>
+  z
+    .string({ error: "is required" })
+    .trim()
+    .min(1, "is required")
+    .regex(/^-?\d+$/, "must be a whole number")
+    .transform(Number)
+    .pipe(inner);
+
+/** The Settings form, with the same bounds as a tenant created by the CLI (newTenantSchema). */
+const settingsFormSchema = z.object({
+  sampleSize: wholeNumber(sampleSizeSchema),
+  windowSeconds: wholeNumber(windowSecondsSchema),
+  weightAttribute: z.enum(WEIGHT_ATTRIBUTES, { error: "must be bytes or packets" }),
+  retentionDays: wholeNumber(newTenantSchema.shape.retentionDays.unwrap()),
+});
+
+export type SettingsParse = { ok: true; settings: TenantSettings } | { ok: false; fieldErrors: Partial<Record<SettingField, string>> };
+
+/** Parses posted form fields; each failure is one message per field, worded to follow the field's label. */
+export function parseSettingsForm(form: Record<string, unknown>): SettingsParse {
+  const parsed = settingsFormSchema.safeParse(form, {
+    // newTenantSchema's retention bounds carry zod's generic wording; say it the way the other fields do.
+    error: (issue) =>
+      issue.code === "too_small" ? `must be at least ${issue.minimum}` : issue.code === "too_big" ? `must be at most ${issue.maximum}` : undefined,
+  });
+  if (parsed.success) return { ok: true, settings: parsed.data };
+  const fieldErrors: Partial<Record<SettingField, string>> = {};
+  for (const issue of parsed.error.issues) {
+    const field = issue.path[0];
+    if (typeof field === "string" && field in SETTING_LABELS && !fieldErrors[field as SettingField]) fieldErrors[field as SettingField] = issue.message;
+  }
+  return { ok: false, fieldErrors };
+}
+
+export interface SettingChange {
+  field: SettingField;
+  old: number | string;
+  new: number | string;
+}
+
+/**
+ * Stores a tenant's new settings and records what changed in the ledger (settings.update,
+ * old and new values of the changed fields only). Nothing changed → nothing written.
+ * Ingest reads the tenant row on every batch, so the next window opened uses the new
+ * k and length; a reservoir keeps the k and length it was created with.
+ */
+export async function updateTenantSettings(
+  db: Db,
+  tenant: { id: number } & TenantSettings,
+  next: TenantSettings,
+  actor: { id: number; label: string },
+): Promise<SettingChange[]> {
+  const fields = Object.keys(SETTING_LABELS) as SettingField[];
+  const changes = fields.filter((f) => tenant[f] !== next[f]).map((f) => ({ field: f, old: tenant[f], new: next[f] }));
+  if (changes.length === 0) return changes;
+  await db.update(tenants).set(next).where(eq(tenants.id, tenant.id));
+  await recordAudit(db, {
+    tenantId: tenant.id,
+    actor,
+    action: "settings.update",
+    detail: {
+      old: Object.fromEntries(changes.map((c) => [c.field, c.old])),
+      new: Object.fromEntries(changes.map((c) => [c.field, c.new])),
+    },
+  });
+  return changes;
+}
+
+export interface ReservoirShape {
+  k: number;
+  windowSeconds: number;
+  reservoirs: number;
+  firstWindowStart: number;
+  lastWindowStart: number;
+}
+
+/** The tenant's stored reservoirs grouped by their own k and window length. */
+export function reservoirShapes(db: Db, tenantId: number): Promise<ReservoirShape[]> {
+  return db
+    .select({
+      k: reservoirs.k,
+      windowSeconds: reservoirs.windowSeconds,
+      reservoirs: count(),
+      firstWindowStart: min(reservoirs.windowStart).mapWith(Number),
+      lastWindowStart: max(reservoirs.windowStart).mapWith(Number),
+    })
+    .from(reservoirs)
+    .where(eq(reservoirs.tenantId, tenantId))
+    .groupBy(reservoirs.k, reservoirs.windowSeconds)
+    .orderBy(asc(reservoirs.windowSeconds), asc(reservoirs.k));
+}

@@ -1,0 +1,118 @@
+/**
+ * Numbers as the console shows them: short, with units, and exact in a tooltip.
+ * Byte units are decimal (1 KB = 1000 B), as link speeds and transfer volumes are
+ * counted in networking (common practice; IEC binary units would read KiB, MiB).
+ *
+ * Pure module: no I/O, usable in the browser and on the server. Formatting uses the fixed
+ * locale en-US, so the server and the browser write the same text.
+ */
+import type { Counter } from "../query/answer.ts";
+import type { Metric } from "../query/request.ts";
+
+const BYTE_UNITS = ["B", "KB", "MB", "GB", "TB", "PB", "EB", "ZB"];
+const COUNT_UNITS = ["", "k", "M", "G", "T", "P", "E"];
+
+function scaled(value: number, units: string[]): { text: string; unit: string } {
+  const sign = value < 0 ? "-" : "";
+  let v = Math.abs(value);
+  let i = 0;
+  while (v >= 999.5 && i < units.length - 1) {
+    v /= 1000;
+    i++;
+  }
+  // Three significant figures; whole numbers below 1000 of the base unit stay whole.
+  const text = i === 0 && Number.isInteger(v) ? String(v) : v >= 100 ? v.toFixed(0) : v >= 10 ? v.toFixed(1) : v.toFixed(2);
+  return { text: sign + text, unit: units[i] };
+}
+
+/**
+ * @example formatBytes(512)        // "512 B"
+ * @example formatBytes(1_234_567)  // "1.23 MB"
+ */
+export function formatBytes(bytes: number): string {
+  const { text, unit } = scaled(bytes, BYTE_UNITS);
+  return `${text} ${unit}`;
+}
+
+/**
+ * A count with an SI prefix and its noun.
+ *
+ * @example formatCount(845, "flows")          // "845 flows"
+ * @example formatCount(1_234_567, "packets")  // "1.23 M packets"
+ * @example formatCount(12.4, "flows")         // "12.4 flows"
+ */
+export function formatCount(value: number, noun: string): string {
+  const { text, unit } = scaled(value, COUNT_UNITS);
+  return `${text} ${unit}${unit === "" ? "" : " "}${noun}`;
+}
+
+/** @example formatMetric(1_500_000, "bytes") // "1.50 MB" */
+export function formatMetric(value: number, metric: Metric): string {
+  return metric === "bytes" ? formatBytes(value) : formatCount(value, metric);
+}
+
+/**
+ * An interval with its unit written once when both ends share it.
+ *
+ * @example formatMetricRange(1_770_000_000, 1_780_000_000, "bytes") // "1.77 – 1.78 GB"
+ * @example formatMetricRange(980, 1_200, "bytes")                   // "980 B – 1.20 KB"
+ */
+export function formatMetricRange(low: number, high: number, metric: Metric): string {
+  const a = formatMetric(low, metric);
+  const b = formatMetric(high, metric);
+  const unitA = a.slice(a.indexOf(" "));
+  return unitA === b.slice(b.indexOf(" ")) ? `${a.slice(0, a.indexOf(" "))} – ${b}` : `${a} – ${b}`;
+}
+
+/**
+ * A figure for a chart axis: bytes with their unit, counts with an SI prefix only (the
+ * axis names the noun once).
+ *
+ * @example axisValue(125_000_000, "bytes") // "125 MB"
+ * @example axisValue(2500, "packets")      // "2.50 k"
+ */
+export function axisValue(value: number, metric: Metric): string {
+  if (metric === "bytes") return formatBytes(value);
+  const { text, unit } = scaled(value, COUNT_UNITS);
+  return unit === "" ? text : `${text} ${unit}`;
+}
+
+/**
+ * The exact figure for a tooltip: grouped digits, at most one decimal, and the unit.
+ *
+ * @example exactMetric(1234567.89, "bytes") // "1,234,567.9 bytes"
+ */
+export function exactMetric(value: number | Counter, unit: string): string {
+  if (typeof value === "string") return `${value.replace(/\B(?=(\d{3})+(?!\d))/g, ",")} ${unit}`;
+  return `${value.toLocaleString("en-US", { maximumFractionDigits: 1 })} ${unit}`;
+}
+
+/**
+ * A share or relative error as a percentage with about three significant figures.
+ *
+ * @example formatPercent(0.1234)  // "12.3%"
+ * @example formatPercent(0.00004) // "<0.01%"
+ */
+export function formatPercent(ratio: number): string {
+  if (!Number.isFinite(ratio)) return "—";
+  const pct = ratio * 100;
+  if (pct === 0) return "0%";
+  if (Math.abs(pct) < 0.01) return "<0.01%";
+  return `${pct >= 100 ? pct.toFixed(0) : pct >= 10 ? pct.toFixed(1) : pct.toFixed(2)}%`;
+}
+
+/**
+ * An instant in UTC to the minute, as the console writes times.
+ *
+ * @example formatUtc(Date.UTC(2024, 4, 1, 2, 5)) // "2024-05-01 02:05 UTC"
+ */
+export function formatUtc(ms: number | string): string {
+  const d = new Date(ms);
+  if (Number.isNaN(d.getTime())) return String(ms);
+  return `${d.toISOString().slice(0, 16).replace("T", " ")} UTC`;
+}
+
+/** A counter of the API (number, or decimal text above 2^53) as a float for ratios. */
+export function counterValue(counter: Counter): number {
+  return typeof counter === "number" ? counter : Number(counter);
+}

@@ -1,0 +1,179 @@
+import { afterAll, beforeAll, describe, expect, it } from "vitest";
+import { ensureUserByEmail, setMembership } from "~/auth/users.server";
+import { createTenant } from "~/tenants.server";
+import { postFlows, startTestServer, tenantWithKey, type TestServer } from "../helpers/server";
+import { signIn, type SignedIn } from "../helpers/session";
+
+// The Settings page of the console (/t/:tenant/settings) against a real server: an admin's
+// change is validated, recorded in the ledger with old and new values, and used by the
+// windows that ingest opens afterwards, while existing reservoirs keep their own k and
+// length (each is a separate priority sample: Duffield, Lund, Thorup, J. ACM 54(6), 2007).
+
+// Documentation addresses (RFC 5737); record times in a fixed past hour, so windows do not depend on the clock.
+const T0 = Date.UTC(2026, 0, 5, 2, 1);
+const HOUR_MS = 3600_000;
+const flowsAt = (start: number, n: number) =>
+  Array.from({ length: n }, (_, i) => ({
+    src: `192.0.2.${i % 250}`,
+    dst: "198.51.100.7",
+    proto: 6,
+    dport: 443,
+    bytes: 100 + 37 * i,
+    packets: 1 + (i % 4),
+    start,
+  }));
+
+const form = (values: Partial<Record<"sampleSize" | "windowSeconds" | "weightAttribute" | "retentionDays", string>>) => ({
+  sampleSize: "64",
+  windowSeconds: "300",
+  weightAttribute: "bytes",
+  retentionDays: "30",
+  ...values,
+});
+
+describe("console Settings", () => {
+  let t: TestServer;
+  let ada: SignedIn, eli: SignedIn, vera: SignedIn, oskar: SignedIn;
+  const sql = async (q: string, args: (string | number)[] = []) => (await t.server.db.$client.execute({ sql: q, args })).rows;
+  const post = (key: string, records: object[]) => postFlows(t.url, key, JSON.stringify(records));
+  let slugs = 0;
+
+  /** A fresh tenant (k 64, 5-minute windows) with an ingest key and this file's members, so tests do not share settings. */
+  async function tenant() {
+    const made = await tenantWithKey(t.server, `riverline-${++slugs}`, { sampleSize: 64, windowSeconds: 300 });
+    const grants = [
+      ["ada@example.com", "admin"],
+      ["eli@example.com", "engineer"],
+      ["vera@example.com", "viewer"],
+    ] as const;
+    for (const [email, role] of grants) await setMembership(t.server.db, (await ensureUserByEmail(t.server.db, email)).id, made.tenant.id, role);
+    return { ...made, path: `/t/${made.tenant.slug}/settings` };
+  }
+  const reservoirsOf = (tenantId: number) =>
+    sql("SELECT window_start, window_seconds, k, records FROM reservoirs WHERE tenant_id = ? ORDER BY window_seconds, window_start", [tenantId]);
+  const settingsOf = async (tenantId: number) =>
+    (await sql("SELECT sample_size, window_seconds, weight_attribute, retention_days FROM tenants WHERE id = ?", [tenantId]))[0];
+
+  beforeAll(async () => {
+    t = await startTestServer();
+    const tributary = await createTenant(t.server.db, { slug: "tributary" });
+    await setMembership(t.server.db, (await ensureUserByEmail(t.server.db, "oskar@example.org")).id, tributary.id, "admin");
+    [ada, eli, vera, oskar] = await Promise.all(["ada-admin", "eli-engineer", "vera-viewer", "oskar-outsider"].map((login) => signIn(t.url, login)));
+  });
+  afterAll(() => t?.close());
+
+  it("shows the current settings, that changes apply to new windows, and the privacy caution", async () => {
+    const { path } = await tenant();
+    const res = await ada.fetch(path);
+    expect(res.status).toBe(200);
+    const html = await res.text();
+    expect(html).toMatch(/id="sampleSize"[^>]*value="64"/);
+    expect(html).toMatch(/<option value="300" selected="">5 minutes<\/option>/);
+    expect(html).toContain("A change applies to windows created from now on");
+    expect(html).toContain("can be personal data");
+    expect(html).toContain("follow your data-protection policy and local law");
+  });
+
+  it("saves a new k and window length, records old and new in the ledger, and later windows use them while an existing one keeps its own", async () => {
+    const { tenant: row, key, path } = await tenant();
+    expect((await post(key, flowsAt(T0, 10))).status).toBe(200);
+    expect(await reservoirsOf(row.id)).toEqual([{ window_start: Date.UTC(2026, 0, 5, 2, 0), window_seconds: 300, k: 64, records: 10 }]);
+
+    const saved = await ada.post(path, form({ sampleSize: "32", windowSeconds: "900" }));
+    expect(saved.status).toBe(200);
+    const html = await saved.text();
+    expect(html).toContain("Sample size k: 64 → 32");
+    expect(html).toContain("Window length: 5 minutes → 15 minutes");
+    expect(await settingsOf(row.id)).toEqual({ sample_size: 32, window_seconds: 900, weight_attribute: "bytes", retention_days: 30 });
+
+    const ledger = await sql("SELECT actor, detail FROM audit_log WHERE tenant_id = ? AND action = 'settings.update'", [row.id]);
+    expect(ledger).toHaveLength(1);
+    expect(ledger[0].actor).toBe("ada-admin");
+    expect(JSON.parse(String(ledger[0].detail))).toEqual({ old: { sampleSize: 64, windowSeconds: 300 }, new: { sampleSize: 32, windowSeconds: 900 } });
+
+    // The same instant and an hour later: both land in new 15-minute windows with k = 32.
+    const after = await post(key, [...flowsAt(T0, 5), ...flowsAt(T0 + HOUR_MS, 5)]);
+    expect(after.status).toBe(200);
+    const answer = await after.json();
+    expect(answer.windows.map((w: { start: string; end: string; k: number }) => [w.start, w.end, w.k])).toEqual([
+      ["2026-01-05T02:00:00.000Z", "2026-01-05T02:15:00.000Z", 32],
+      ["2026-01-05T03:00:00.000Z", "2026-01-05T03:15:00.000Z", 32],
+    ]);
+    expect(await reservoirsOf(row.id)).toEqual([
+      { window_start: Date.UTC(2026, 0, 5, 2, 0), window_seconds: 300, k: 64, records: 10 },
+      { window_start: Date.UTC(2026, 0, 5, 2, 0), window_seconds: 900, k: 32, records: 5 },
+      { window_start: Date.UTC(2026, 0, 5, 3, 0), window_seconds: 900, k: 32, records: 5 },
+    ]);
+  });
+
+  it("keeps an existing window's k when k changes: its reservoir still keeps at most the old k", async () => {
+    const { tenant: row, key, path } = await tenant();
+    await t.server.db.$client.execute({ sql: "UPDATE tenants SET sample_size = 16 WHERE id = ?", args: [row.id] });
+    expect((await post(key, flowsAt(T0, 40))).status).toBe(200);
+
+    expect((await ada.post(path, form({ sampleSize: "128" }))).status).toBe(200);
+    const same = await (await post(key, flowsAt(T0, 40))).json();
+    // k records kept, never more (the reservoir's bound, Duffield–Lund–Thorup §2).
+    expect(same.windows).toEqual([expect.objectContaining({ start: "2026-01-05T02:00:00.000Z", records: 40, k: 16, kept: 16 })]);
+    const next = await (await post(key, flowsAt(T0 + HOUR_MS, 40))).json();
+    // Fewer records than k: the new window keeps every one of them.
+    expect(next.windows).toEqual([expect.objectContaining({ start: "2026-01-05T03:00:00.000Z", records: 40, k: 128, kept: 40 })]);
+  });
+
+  it("answers 400 naming the field for each invalid value, and changes nothing", async () => {
+    const { tenant: row, path } = await tenant();
+    const cases: [Record<string, string>, string][] = [
+      [form({ sampleSize: "8" }), "Sample size k must be at least 16."],
+      [form({ sampleSize: "70000" }), "Sample size k must be at most 65536."],
+      [form({ sampleSize: "12.5" }), "Sample size k must be a whole number."],
+      [form({ sampleSize: "" }), "Sample size k is required."],
+      [form({ windowSeconds: "120" }), "Window length must be one of 60, 300, 900, 3600 seconds."],
+      [form({ weightAttribute: "flows" }), "Weight attribute must be bytes or packets."],
+      [form({ retentionDays: "0" }), "Retention must be at least 1."],
+      [form({ retentionDays: "4000" }), "Retention must be at most 3650."],
+      [{ sampleSize: "64", windowSeconds: "300", weightAttribute: "bytes" }, "Retention is required."],
+    ];
+    for (const [fields, message] of cases) {
+      const res = await ada.post(path, fields);
+      expect(res.status, message).toBe(400);
+      const html = await res.text();
+      expect(html, message).toContain(message);
+      expect(html, message).toContain("Not saved");
+    }
+    expect(await settingsOf(row.id)).toEqual({ sample_size: 64, window_seconds: 300, weight_attribute: "bytes", retention_days: 30 });
+    expect(await sql("SELECT id FROM audit_log WHERE tenant_id = ?", [row.id])).toHaveLength(0);
+  });
+
+  it("saves weight and retention, and says so when nothing changed without writing to the ledger", async () => {
+    const { tenant: row, path } = await tenant();
+    const saved = await ada.post(path, form({ weightAttribute: "packets", retentionDays: "7" }));
+    expect(saved.status).toBe(200);
+    expect(await saved.text()).toContain("Retention: 30 days → 7 days");
+    expect(await settingsOf(row.id)).toMatchObject({ weight_attribute: "packets", retention_days: 7 });
+
+    const unchanged = await ada.post(path, form({ weightAttribute: "packets", retentionDays: "7" }));
+    expect(unchanged.status).toBe(200);
+    expect(await unchanged.text()).toContain("nothing had changed");
+    const ledger = await sql("SELECT detail FROM audit_log WHERE tenant_id = ? AND action = 'settings.update'", [row.id]);
+    expect(ledger.map((r) => JSON.parse(String(r.detail)))).toEqual([
+      { old: { weightAttribute: "bytes", retentionDays: 30 }, new: { weightAttribute: "packets", retentionDays: 7 } },
+    ]);
+  });
+
+  it("answers 403 to engineers and viewers, on GET and on a forged POST, and changes nothing", async () => {
+    const { tenant: row, path } = await tenant();
+    for (const member of [eli, vera]) {
+      expect((await member.fetch(path)).status).toBe(403);
+      expect((await member.post(path, form({ sampleSize: "16", retentionDays: "3650" }))).status).toBe(403);
+    }
+    expect(await settingsOf(row.id)).toEqual({ sample_size: 64, window_seconds: 300, weight_attribute: "bytes", retention_days: 30 });
+    expect(await sql("SELECT id FROM audit_log WHERE tenant_id = ?", [row.id])).toHaveLength(0);
+  });
+
+  it("answers 404 to a member of another tenant, on GET and POST", async () => {
+    const { tenant: row, path } = await tenant();
+    expect((await oskar.fetch(path)).status).toBe(404);
+    expect((await oskar.post(path, form({ sampleSize: "16" }))).status).toBe(404);
+    expect((await settingsOf(row.id)).sample_size).toBe(64);
+  });
+});

@@ -1,0 +1,49 @@
+import { describe, expect, test } from "vitest";
+import { axisValue, exactMetric, formatBytes, formatCount, formatMetric, formatMetricRange, formatPercent, formatUtc } from "~/slice/format";
+
+describe("numbers as the console shows them", () => {
+  test("bytes in decimal units, three significant figures (common practice in networking: 1 KB = 1000 B)", () => {
+    expect(formatBytes(0)).toBe("0 B");
+    expect(formatBytes(512)).toBe("512 B");
+    expect(formatBytes(999)).toBe("999 B");
+    expect(formatBytes(1000)).toBe("1.00 KB");
+    expect(formatBytes(1_234_567)).toBe("1.23 MB");
+    expect(formatBytes(45_600_000_000)).toBe("45.6 GB");
+    expect(formatBytes(999_600)).toBe("1.00 MB");
+    expect(formatBytes(2 * 18_446_744_073_709_551_615)).toBe("36.9 EB"); // 2·(2^64 − 1), RFC 7012 unsigned64 twice
+  });
+
+  test("packets and flows with SI prefixes and their noun", () => {
+    expect(formatCount(845, "flows")).toBe("845 flows");
+    expect(formatCount(12.4, "flows")).toBe("12.4 flows");
+    expect(formatCount(1_234_567, "packets")).toBe("1.23 M packets");
+    expect(formatMetric(1_500_000, "bytes")).toBe("1.50 MB");
+    expect(formatMetric(2500, "flows")).toBe("2.50 k flows");
+  });
+
+  test("intervals write a shared unit once; chart axes leave the noun of counts to the axis title", () => {
+    expect(formatMetricRange(1_770_000_000, 1_780_000_000, "bytes")).toBe("1.77 – 1.78 GB");
+    expect(formatMetricRange(980, 1_200, "bytes")).toBe("980 B – 1.20 KB");
+    expect(formatMetricRange(3340, 4140, "packets")).toBe("3.34 – 4.14 k packets");
+    expect(formatMetricRange(150, 150, "flows")).toBe("150 – 150 flows");
+    expect(axisValue(125_000_000, "bytes")).toBe("125 MB");
+    expect(axisValue(2500, "packets")).toBe("2.50 k");
+    expect(axisValue(200, "flows")).toBe("200");
+  });
+
+  test("exact figures for tooltips, including counters past 2^53 sent as text", () => {
+    expect(exactMetric(1234567.89, "bytes")).toBe("1,234,567.9 bytes");
+    expect(exactMetric("36893488147419103230", "bytes")).toBe("36,893,488,147,419,103,230 bytes");
+  });
+
+  test("percentages and UTC times", () => {
+    expect(formatPercent(0.1234)).toBe("12.3%");
+    expect(formatPercent(0.012345)).toBe("1.23%");
+    expect(formatPercent(1.5)).toBe("150%");
+    expect(formatPercent(0.00004)).toBe("<0.01%");
+    expect(formatPercent(0)).toBe("0%");
+    expect(formatPercent(Number.NaN)).toBe("—");
+    expect(formatUtc(Date.UTC(2024, 4, 1, 2, 5))).toBe("2024-05-01 02:05 UTC");
+    expect(formatUtc("2024-05-01T02:05:00.000Z")).toBe("2024-05-01 02:05 UTC");
+  });
+});
