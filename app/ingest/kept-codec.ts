@@ -1,5 +1,5 @@
 import type { FlowRecord } from "~/flow/record";
-import type { KeptColumns } from "~/query/columns";
+import { emptyColumns, type KeptColumns } from "~/query/columns";
 
 /**
  * A kept record as one fixed-size binary row (little-endian), the form
@@ -128,18 +128,7 @@ export function keptRowsToColumns(data: Uint8Array): KeptColumns {
   if (data.byteLength % KEPT_ROW_BYTES !== 0) throw new RangeError(`kept rows: ${data.byteLength} bytes is not a multiple of ${KEPT_ROW_BYTES}`);
   const n = data.byteLength / KEPT_ROW_BYTES;
   const view = new DataView(data.buffer, data.byteOffset, data.byteLength);
-  const c: KeptColumns = {
-    length: n,
-    weight: new Float64Array(n),
-    bytes: new Float64Array(n),
-    packets: new Float64Array(n),
-    src: new Uint8Array(16 * n),
-    dst: new Uint8Array(16 * n),
-    sport: new Uint16Array(n),
-    dport: new Uint16Array(n),
-    proto: new Uint8Array(n),
-    start: new Float64Array(n),
-  };
+  const c = emptyColumns(n);
   for (let i = 0; i < n; i++) {
     const o = i * KEPT_ROW_BYTES;
     c.weight[i] = view.getFloat64(o + 8, true);

@@ -27,10 +27,9 @@ export interface KeptRow {
   record: Pick<FlowRecord, "src" | "dst" | "sport" | "dport" | "proto" | "bytes" | "packets" | "start">;
 }
 
-/** Lays kept records out in columns (order preserved). */
-export function toColumns(rows: readonly KeptRow[]): KeptColumns {
-  const n = rows.length;
-  const c: KeptColumns = {
+/** Zero-filled columns for n kept records. */
+export function emptyColumns(n: number): KeptColumns {
+  return {
     length: n,
     weight: new Float64Array(n),
     bytes: new Float64Array(n),
@@ -42,6 +41,12 @@ export function toColumns(rows: readonly KeptRow[]): KeptColumns {
     proto: new Uint8Array(n),
     start: new Float64Array(n),
   };
+}
+
+/** Lays kept records out in columns (order preserved). */
+export function toColumns(rows: readonly KeptRow[]): KeptColumns {
+  const n = rows.length;
+  const c = emptyColumns(n);
   rows.forEach(({ weight, record: r }, i) => {
     c.weight[i] = weight;
     c.bytes[i] = Number(r.bytes);
