@@ -5,6 +5,7 @@ export default [
   route("healthz", "routes/healthz.ts"),
   route("api/v1/flows", "routes/api.v1.flows.ts"),
   route("api/v1/estimate", "routes/api.v1.estimate.ts"),
+  route("api/v1/samples", "routes/api.v1.samples.ts"),
 
   route("signin", "routes/signin.tsx"),
   route("signout", "routes/signout.ts"),
