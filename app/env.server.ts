@@ -30,7 +30,9 @@ export const envSchema = z
     INGEST_MAX_BODY_BYTES: z.coerce.number().int().positive().default(16_777_216),
     INGEST_MAX_RECORDS: z.coerce.number().int().positive().default(100_000),
     // Worker threads that decode and validate ingest bodies; 0 does it on the main thread (debugging).
-    INGEST_PARSE_WORKERS: z.coerce.number().int().min(0).default(() => availableParallelism()),
+    // One core stays with the main thread (HTTP, sampling, the SQLite commit): on two cores one
+    // parse worker measured faster than two.
+    INGEST_PARSE_WORKERS: z.coerce.number().int().min(0).default(() => Math.max(1, availableParallelism() - 1)),
     IDEMPOTENCY_TTL_HOURS: z.coerce.number().positive().default(24),
     // Console sign-in. With GITHUB_CLIENT_ID/SECRET set, Weir signs people in through GitHub;
     // without them, outside production, it starts a local fake GitHub (see scripts/fakes).

@@ -188,8 +188,8 @@ describe("a parse worker that dies", () => {
 });
 
 describe("parse workers and the server", () => {
-  it("sizes the pool from INGEST_PARSE_WORKERS: one per CPU by default, 0 for the calling thread", () => {
-    expect(parseEnv({}).INGEST_PARSE_WORKERS).toBe(Math.max(1, availableParallelism()));
+  it("sizes the pool from INGEST_PARSE_WORKERS: one per CPU but one by default (at least 1), 0 for the calling thread", () => {
+    expect(parseEnv({}).INGEST_PARSE_WORKERS).toBe(Math.max(1, availableParallelism() - 1));
     expect(parseEnv({ INGEST_PARSE_WORKERS: "0" }).INGEST_PARSE_WORKERS).toBe(0);
     expect(() => parseEnv({ INGEST_PARSE_WORKERS: "-1" })).toThrow(EnvError);
   });
