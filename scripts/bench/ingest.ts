@@ -2,6 +2,7 @@
 // validating the same bodies with the server's own machinery (its parse-worker
 // pool, the same size and concurrency) and (b) keeping every record in a plain table.
 import { mkdtempSync, rmSync } from "node:fs";
+import { Agent } from "node:http";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { createApiKey } from "~/auth/api-keys.server";
@@ -15,7 +16,7 @@ import { createLogger } from "~/logger.server";
 import { createTenant, ensureCollector } from "~/tenants.server";
 import { benchRecords, toNdjsonLine } from "./data";
 import { insertAll, openKeepAll } from "./keep-all";
-import { databaseBytes, startChildServer } from "./util";
+import { databaseBytes, postBody, startChildServer } from "./util";
 
 export interface IngestBench {
   records: number;
@@ -69,22 +70,20 @@ export async function benchIngest(total = 2_000_000, batch = 5_000, concurrency 
     closeDb(db);
     const server = await startChildServer(`file:${weirPath}`);
     let next = 0;
+    const encoded = bodies.map((b) => Buffer.from(b, "utf8"));
+    const agent = new Agent({ keepAlive: true, maxSockets: concurrency });
+    const headers = { authorization: `Bearer ${key}`, "content-type": "application/x-ndjson" };
     const httpStart = performance.now();
     await Promise.all(
       Array.from({ length: concurrency }, async () => {
-        while (next < bodies.length) {
-          const body = bodies[next++];
-          const res = await fetch(`${server.url}/api/v1/flows`, {
-            method: "POST",
-            headers: { authorization: `Bearer ${key}`, "content-type": "application/x-ndjson" },
-            body,
-          });
-          if (res.status !== 200) throw new Error(`ingest answered ${res.status}: ${await res.text()}`);
-          await res.arrayBuffer();
+        while (next < encoded.length) {
+          const res = await postBody(`${server.url}/api/v1/flows`, encoded[next++], headers, agent);
+          if (res.status !== 200) throw new Error(`ingest answered ${res.status}: ${res.text}`);
         }
       }),
     );
     const httpSeconds = (performance.now() - httpStart) / 1000;
+    agent.destroy();
     await server.stop();
 
     const keepAll = await openKeepAll(join(dir, "keep-all.db"));
