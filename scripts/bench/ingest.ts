@@ -5,18 +5,15 @@ import { mkdtempSync, rmSync } from "node:fs";
 import { Agent } from "node:http";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
-import { createApiKey } from "~/auth/api-keys.server";
 import { closeDb, createDb } from "~/db/client.server";
-import { runMigrations } from "~/db/migrate.server";
 import { parseEnv } from "~/env.server";
 import type { FlowRecord } from "~/flow/record";
 import { readFlowBatch } from "~/ingest/body.server";
 import { ParsePool } from "~/ingest/parse-pool.server";
 import { createLogger } from "~/logger.server";
-import { createTenant, ensureCollector } from "~/tenants.server";
 import { benchRecords, toNdjsonLine } from "./data";
 import { insertAll, openKeepAll } from "./keep-all";
-import { databaseBytes, postBody, startChildServer } from "./util";
+import { benchDatabase, databaseBytes, postBody, startChildServer } from "./util";
 
 export interface IngestBench {
   records: number;
@@ -36,11 +33,7 @@ export async function benchIngest(total = 2_000_000, batch = 5_000, concurrency 
   const dir = mkdtempSync(join(tmpdir(), "weir-bench-ingest-"));
   try {
     const weirPath = join(dir, "weir.db");
-    const db = await createDb(`file:${weirPath}`);
-    await runMigrations(db);
-    const tenant = await createTenant(db, { slug: "bench", sampleSize: 1024, windowSeconds: 300 });
-    const collector = await ensureCollector(db, tenant.id, "edge-1");
-    const { key } = await createApiKey(db, { tenantId: tenant.id, collectorId: collector.id, scopes: "ingest" });
+    const { db, key } = await benchDatabase(weirPath, "ingest");
 
     // One hour of traffic ending now (12 five-minute windows, ~167k records each), in time order.
     const now = Date.now();

@@ -3,16 +3,13 @@
 import { mkdtempSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
-import { createApiKey } from "~/auth/api-keys.server";
-import { closeDb, createDb } from "~/db/client.server";
-import { runMigrations } from "~/db/migrate.server";
+import { closeDb } from "~/db/client.server";
 import type { FlowRecord } from "~/flow/record";
 import { ReservoirManager } from "~/ingest/manager.server";
 import { parsePrefix, prefixRange } from "~/net/prefix";
-import { createTenant, ensureCollector } from "~/tenants.server";
 import { benchRecords } from "./data";
 import { insertAll, openKeepAll } from "./keep-all";
-import { databaseBytes, percentile, startChildServer } from "./util";
+import { benchDatabase, databaseBytes, percentile, startChildServer } from "./util";
 
 export interface QueryBench {
   records: number;
@@ -37,11 +34,7 @@ export async function benchQuery(total = 10_000_000, queries = 50, exactRuns = 5
   const dir = mkdtempSync(join(tmpdir(), "weir-bench-query-"));
   try {
     const weirPath = join(dir, "weir.db");
-    const db = await createDb(`file:${weirPath}`);
-    await runMigrations(db);
-    const tenant = await createTenant(db, { slug: "bench", sampleSize: 1024, windowSeconds: 300 });
-    const collector = await ensureCollector(db, tenant.id, "edge-1");
-    const { key } = await createApiKey(db, { tenantId: tenant.id, collectorId: collector.id, scopes: "query" });
+    const { db, tenant, collector, key } = await benchDatabase(weirPath, "query");
     const manager = new ReservoirManager(db, { node: "node-1" });
     const keepAll = await openKeepAll(join(dir, "keep-all.db"));
 

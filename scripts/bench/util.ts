@@ -3,6 +3,10 @@ import { statSync } from "node:fs";
 import { request, type Agent } from "node:http";
 import { fileURLToPath } from "node:url";
 import { createInterface } from "node:readline";
+import { createApiKey } from "~/auth/api-keys.server";
+import { createDb } from "~/db/client.server";
+import { runMigrations } from "~/db/migrate.server";
+import { createTenant, ensureCollector } from "~/tenants.server";
 
 /** Starts scripts/bench/child.ts on the given database; resolves with its URL once it listens. */
 export function startChildServer(databaseUrl: string): Promise<{ child: ChildProcess; url: string; stop: () => Promise<void> }> {
@@ -65,4 +69,14 @@ export function postBody(url: string, body: Buffer, headers: Record<string, stri
     req.on("error", reject);
     req.end(body);
   });
+}
+
+/** A fresh Weir database with one tenant (k = 1024, 5-minute windows), one collector and a key of the given scope. */
+export async function benchDatabase(path: string, scopes: "ingest" | "query") {
+  const db = await createDb(`file:${path}`);
+  await runMigrations(db);
+  const tenant = await createTenant(db, { slug: "bench", sampleSize: 1024, windowSeconds: 300 });
+  const collector = await ensureCollector(db, tenant.id, "edge-1");
+  const { key } = await createApiKey(db, { tenantId: tenant.id, collectorId: collector.id, scopes });
+  return { db, tenant, collector, key };
 }
