@@ -1,6 +1,6 @@
 // Entry point: `npm run dev` / `npm start`. Everything else lives in app/server/app.server.ts
 // so tests and scripts can start the same server on their own port and database.
-import { startServer } from "./app/server/app.server";
+import { closeOnSignals, startServer } from "./app/server/app.server";
 
 const server = await startServer().catch((error: unknown) => {
   console.error(error);
@@ -9,14 +9,4 @@ const server = await startServer().catch((error: unknown) => {
 
 server.logger.info({ url: server.url, node: server.env.NODE_ID }, `Weir listening on ${server.url}`);
 
-for (const signal of ["SIGTERM", "SIGINT"] as const) {
-  process.once(signal, () => {
-    server.close().then(
-      () => process.exit(0),
-      (error: unknown) => {
-        server.logger.error({ err: error }, "shutdown failed");
-        process.exit(1);
-      },
-    );
-  });
-}
+closeOnSignals(server);

@@ -5,7 +5,7 @@
 import { closeDb, createDb } from "~/db/client.server";
 import { runMigrations } from "~/db/migrate.server";
 import { loadEnv } from "~/env.server";
-import { startServer } from "~/server/app.server";
+import { closeOnSignals, startServer } from "~/server/app.server";
 import { DEMO_RIVERLINE_KEY, demoKeyLines } from "./demo-keys";
 import { SeedError, seedDemo } from "./seed";
 
@@ -68,14 +68,4 @@ console.log(
   ].join("\n"),
 );
 
-for (const signal of ["SIGTERM", "SIGINT"] as const) {
-  process.once(signal, () => {
-    server.close().then(
-      () => process.exit(0),
-      (error: unknown) => {
-        server.logger.error({ err: error }, "shutdown failed");
-        process.exit(1);
-      },
-    );
-  });
-}
+closeOnSignals(server);

@@ -253,3 +253,18 @@ function lastResortErrorHandler(logger: Logger): ErrorRequestHandler {
     res.status(500).json({ error: "internal_error" });
   };
 }
+
+/** Closes the server gracefully on SIGTERM or SIGINT, then exits (1 when shutdown fails). */
+export function closeOnSignals(server: WeirServer): void {
+  for (const signal of ["SIGTERM", "SIGINT"] as const) {
+    process.once(signal, () => {
+      server.close().then(
+        () => process.exit(0),
+        (error: unknown) => {
+          server.logger.error({ err: error }, "shutdown failed");
+          process.exit(1);
+        },
+      );
+    });
+  }
+}

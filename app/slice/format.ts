@@ -7,7 +7,7 @@
  * locale en-US, so the server and the browser write the same text.
  */
 import type { Counter } from "../query/answer.ts";
-import type { Metric } from "../query/request.ts";
+import type { GroupByKind, Metric } from "../query/request.ts";
 
 const BYTE_UNITS = ["B", "KB", "MB", "GB", "TB", "PB", "EB", "ZB"];
 const COUNT_UNITS = ["", "k", "M", "G", "T", "P", "E"];
@@ -116,3 +116,14 @@ export function formatUtc(ms: number | string): string {
 export function counterValue(counter: Counter): number {
   return typeof counter === "number" ? counter : Number(counter);
 }
+
+/** What each group-by kind is called in the form and in result headings. */
+export const GROUP_LABELS: Record<GroupByKind, string> = {
+  src: "Source prefix",
+  dst: "Destination prefix",
+  sport: "Source port",
+  dport: "Destination port",
+  proto: "Protocol",
+  collector: "Collector",
+  window: "Window start (UTC)",
+};

@@ -8,7 +8,7 @@ import { parseEstimateRequest, type EstimateQuery, type EstimateRequest, type Me
 import { compileQuery, scan, type ScanReservoir } from "~/query/scan";
 import { addSums, EMPTY_SUM, estimateSubset, type EstimateSum } from "~/sampling/estimate";
 import { seededUniform } from "~/sampling/uniform";
-import { groupKey, matchesWhere, metricValue } from "./reference";
+import { groupKey, matchesWhere, metricValue, type PlainRecord } from "./reference";
 
 // The scan must give exactly what the published estimator gives record by record:
 // Σ x/p and Σ x²(1−p)/p² over the matching kept records with p = min(1, w/τ)
@@ -16,14 +16,7 @@ import { groupKey, matchesWhere, metricValue } from "./reference";
 // summed over reservoirs (independent samples). The reference below is a brute force over the
 // same kept records with the plain predicates of ./reference.ts.
 
-interface TestRecord {
-  src: Uint8Array;
-  dst: Uint8Array;
-  sport: number;
-  dport: number;
-  proto: number;
-  bytes: number;
-  packets: number;
+interface TestRecord extends PlainRecord {
   weight: number;
 }
 

@@ -3,7 +3,7 @@ import type { GroupByKind } from "~/query/request";
 import { Button, Panel } from "~/components/ui";
 import { protocolLabel } from "~/slice/chips";
 import { csvFileName, estimatesCsv } from "~/slice/csv";
-import { exactMetric, formatPercent, formatUtc } from "~/slice/format";
+import { exactMetric, formatPercent, formatUtc, GROUP_LABELS } from "~/slice/format";
 import { describeQuery, type SliceState } from "~/slice/query-state";
 import { exactTotalOf, IntervalValue, MetricValue, ROUGH_EXPLANATION, RoughBadge, Stat } from "./figures";
 
@@ -75,15 +75,6 @@ export function Headline({ answer, tenant, state, updating }: { answer: Estimate
   );
 }
 
-const GROUP_HEADING: Record<GroupByKind, string> = {
-  src: "Source prefix",
-  dst: "Destination prefix",
-  sport: "Source port",
-  dport: "Destination port",
-  proto: "Protocol",
-  collector: "Collector",
-  window: "Window start (UTC)",
-};
 
 function groupLabel(by: GroupByKind, key: string): string {
   if (by === "proto") return protocolLabel(key);
@@ -97,18 +88,18 @@ export function GroupsTable({ answer, by, state }: { answer: EstimateAnswer; by:
   const lengths = by === "src" || by === "dst" ? ` (IPv4 /${state.prefixLength.ipv4}, IPv6 /${state.prefixLength.ipv6})` : "";
   const anyRough = answer.groups.some((g) => g.rough);
   return (
-    <Panel title={`Top ${state.top} by ${GROUP_HEADING[by].toLowerCase()}${lengths}`}>
+    <Panel title={`Top ${state.top} by ${GROUP_LABELS[by].toLowerCase()}${lengths}`}>
       {answer.groups.length === 0 ? (
         <p className="text-sm text-river-300">No group has kept records in this subset.</p>
       ) : (
         <div className="overflow-x-auto">
           <table className="w-full min-w-[44rem] text-sm">
             <caption className="sr-only">
-              Estimates per {GROUP_HEADING[by].toLowerCase()}, largest first, with 95% intervals
+              Estimates per {GROUP_LABELS[by].toLowerCase()}, largest first, with 95% intervals
             </caption>
             <thead>
               <tr className="border-b border-river-700 text-left text-xs text-river-300">
-                <th scope="col" className="py-2 pr-3 font-medium">{GROUP_HEADING[by]}</th>
+                <th scope="col" className="py-2 pr-3 font-medium">{GROUP_LABELS[by]}</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">Estimate</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">95% interval</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">Std error</th>

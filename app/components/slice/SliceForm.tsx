@@ -3,17 +3,9 @@ import { Button, inputClass } from "~/components/ui";
 import { DEFAULT_TOP, GROUP_BY, MAX_TOP, METRICS, type GroupByKind, type Metric } from "~/query/request";
 import { checkPortChip, checkPrefixChip, checkProtocolChip, COMMON_PROTOCOLS, protocolLabel } from "~/slice/chips";
 import { RANGE_PRESETS, resolveRange, type RangePreset, type SliceRange, type SliceState } from "~/slice/query-state";
+import { GROUP_LABELS } from "~/slice/format";
 import { ChipInput } from "./ChipInput";
 
-const GROUP_LABELS: Record<GroupByKind, string> = {
-  src: "Source prefix",
-  dst: "Destination prefix",
-  sport: "Source port",
-  dport: "Destination port",
-  proto: "Protocol",
-  collector: "Collector",
-  window: "Window",
-};
 
 const METRIC_LABELS: Record<Metric, string> = { bytes: "Bytes", packets: "Packets", flows: "Flows (records)" };
 
