@@ -52,13 +52,26 @@ export async function findTenantById(db: Db, id: number): Promise<Tenant | undef
   return row;
 }
 
-/** The collector of that name in the tenant, created when new. */
+/** A name that belongs to a merged collector was used where records are sent. */
+export class MergedCollectorError extends Error {
+  constructor(readonly collector: string) {
+    super(`${collector} is a merged collector (made by a merge of other collectors); records and samples cannot be sent to it. Choose another name.`);
+    this.name = "MergedCollectorError";
+  }
+}
+
+/**
+ * The stream collector of that name in the tenant, created when new. Throws
+ * MergedCollectorError when the name belongs to a merge: its reservoirs are a merge's
+ * output, and records sent there would mix with it.
+ */
 export async function ensureCollector(db: Db, tenantId: number, name: string): Promise<{ id: number; name: string }> {
   collectorNameSchema.parse(name);
   await db.insert(collectors).values({ tenantId, name }).onConflictDoNothing();
   const [row] = await db
-    .select({ id: collectors.id, name: collectors.name })
+    .select({ id: collectors.id, name: collectors.name, kind: collectors.kind })
     .from(collectors)
     .where(and(eq(collectors.tenantId, tenantId), eq(collectors.name, name)));
-  return row;
+  if (row.kind !== "stream") throw new MergedCollectorError(row.name);
+  return { id: row.id, name: row.name };
 }

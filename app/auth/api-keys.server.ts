@@ -59,8 +59,22 @@ export interface KeyPrincipal {
   keyId: number;
   prefix: string;
   scopes: Scope[];
-  tenant: { id: number; slug: string; sampleSize: number; windowSeconds: number; weightAttribute: "bytes" | "packets" };
+  tenant: {
+    id: number;
+    slug: string;
+    sampleSize: number;
+    windowSeconds: number;
+    weightAttribute: "bytes" | "packets";
+    /** The SipHash key of coordinated draws when the tenant samples with coordinated priorities, else null. */
+    coordinationKey: Uint8Array | null;
+  };
   collector: { id: number; name: string };
+}
+
+/** The tenant's coordination key as bytes when coordinated priorities are on, else null. */
+export function coordinationKeyOf(tenant: { coordinated: boolean; coordinationSecret: string | null }): Uint8Array | null {
+  if (!tenant.coordinated || tenant.coordinationSecret === null) return null;
+  return Uint8Array.from(Buffer.from(tenant.coordinationSecret, "hex"));
 }
 
 /** An API error a client caused: status, machine code and a message for people. */
@@ -102,6 +116,8 @@ export async function authenticateKey(db: Db, request: Request, scope: Scope): P
       sampleSize: tenants.sampleSize,
       windowSeconds: tenants.windowSeconds,
       weightAttribute: tenants.weightAttribute,
+      coordinated: tenants.coordinated,
+      coordinationSecret: tenants.coordinationSecret,
       collectorId: collectors.id,
       collectorName: collectors.name,
     })
@@ -122,7 +138,14 @@ export async function authenticateKey(db: Db, request: Request, scope: Scope): P
     keyId: row.keyId,
     prefix: match[1],
     scopes,
-    tenant: { id: row.tenantId, slug: row.slug, sampleSize: row.sampleSize, windowSeconds: row.windowSeconds, weightAttribute: row.weightAttribute },
+    tenant: {
+      id: row.tenantId,
+      slug: row.slug,
+      sampleSize: row.sampleSize,
+      windowSeconds: row.windowSeconds,
+      weightAttribute: row.weightAttribute,
+      coordinationKey: coordinationKeyOf(row),
+    },
     collector: { id: row.collectorId, name: row.collectorName },
   };
 }

@@ -28,7 +28,18 @@ export const tenants = sqliteTable(
     sampleSize: integer("sample_size").notNull().default(1024),
     windowSeconds: integer("window_seconds").notNull().default(300),
     weightAttribute: text("weight_attribute", { enum: WEIGHT_ATTRIBUTES }).notNull().default("bytes"),
+    /** N: fine windows (shorter than an hour) are kept this many days, then rolled up into hourly windows. */
     retentionDays: integer("retention_days").notNull().default(30),
+    /** M: hourly windows are deleted once this many days old (M ≥ N, checked by the settings; M = N deletes fine windows without a roll-up). */
+    hourlyRetentionDays: integer("hourly_retention_days").notNull().default(365),
+    /**
+     * Coordinated priorities: u_i comes from a keyed hash of the flow key
+     * (app/sampling/coordinated.ts) instead of a random source, so the same flow exported by
+     * two collectors gets the same priority and a merge counts it once.
+     */
+    coordinated: integer("coordinated", { mode: "boolean" }).notNull().default(false),
+    /** The 16-byte SipHash key of the coordinated draws, hex; made when first needed and never changed. */
+    coordinationSecret: text("coordination_secret"),
     createdAt: integer("created_at").notNull().$defaultFn(() => Date.now()),
   },
   (t) => [
@@ -38,7 +49,14 @@ export const tenants = sqliteTable(
   ],
 );
 
-/** A named source of records inside a tenant (a router, a site, a script). */
+export const COLLECTOR_KINDS = ["stream", "merge"] as const;
+export type CollectorKind = (typeof COLLECTOR_KINDS)[number];
+
+/**
+ * A named source of records inside a tenant (a router, a site, a script): kind `stream`.
+ * Kind `merge` is the stored result of a merge of other collectors (table `merges`); it is
+ * queried only by name, since its records are already counted in its inputs.
+ */
 export const collectors = sqliteTable(
   "collectors",
   {
@@ -47,10 +65,43 @@ export const collectors = sqliteTable(
       .notNull()
       .references(() => tenants.id, { onDelete: "cascade" }),
     name: text("name").notNull(),
+    kind: text("kind", { enum: COLLECTOR_KINDS }).notNull().default("stream"),
     createdAt: integer("created_at").notNull().$defaultFn(() => Date.now()),
     lastSeenAt: integer("last_seen_at"),
   },
-  (t) => [unique("collectors_tenant_name_unique").on(t.tenantId, t.name)],
+  (t) => [unique("collectors_tenant_name_unique").on(t.tenantId, t.name), check("collectors_kind_check", sql`${t.kind} in ('stream', 'merge')`)],
+);
+
+/**
+ * Provenance of a merged collector: which collectors and windows went in, at what sample
+ * size, who asked and when. One row per collector of kind `merge`.
+ */
+export const merges = sqliteTable(
+  "merges",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    tenantId: integer("tenant_id")
+      .notNull()
+      .references(() => tenants.id, { onDelete: "cascade" }),
+    collectorId: integer("collector_id")
+      .notNull()
+      .unique()
+      .references(() => collectors.id, { onDelete: "cascade" }),
+    /** JSON array of the input collectors' names. */
+    inputs: text("inputs").notNull(),
+    fromMs: integer("from_ms").notNull(),
+    toMs: integer("to_ms").notNull(),
+    sampleSize: integer("sample_size").notNull(),
+    /** True when the inputs were merged as coordinated samples (duplicates counted once). */
+    coordinated: integer("coordinated", { mode: "boolean" }).notNull(),
+    windows: integer("windows").notNull(),
+    kept: integer("kept").notNull(),
+    duplicatesDropped: integer("duplicates_dropped").notNull().default(0),
+    /** A person's login or an API key prefix. */
+    createdBy: text("created_by").notNull(),
+    createdAt: integer("created_at").notNull().$defaultFn(() => Date.now()),
+  },
+  (t) => [index("merges_tenant_idx").on(t.tenantId, t.createdAt)],
 );
 
 /**
@@ -175,6 +226,7 @@ export type NewReservoir = typeof reservoirs.$inferInsert;
 export type KeptRecord = typeof keptRecords.$inferSelect;
 export type NewKeptRecord = typeof keptRecords.$inferInsert;
 export type IngestBatch = typeof ingestBatches.$inferSelect;
+export type Merge = typeof merges.$inferSelect;
 export type NewIngestBatch = typeof ingestBatches.$inferInsert;
 
 export const ROLES = ["viewer", "engineer", "admin"] as const;

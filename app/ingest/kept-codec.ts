@@ -1,5 +1,6 @@
 import type { FlowRecord } from "~/flow/record";
 import { emptyColumns, type KeptColumns } from "~/query/columns";
+import { writeFlowKey } from "~/sampling/coordinated";
 
 /**
  * A kept record as one fixed-size binary row (little-endian), the form
@@ -142,4 +143,22 @@ export function keptRowsToColumns(data: Uint8Array): KeptColumns {
     c.proto[i] = data[o + 84];
   }
   return c;
+}
+
+/**
+ * Writes the flow key of the row at `offset` into `out` (45 bytes), exactly as
+ * `flowKeyBytes(decodeRowRecord(data, offset))` would, without building the record.
+ */
+export function flowKeyOfRow(data: Uint8Array, offset: number, out: Uint8Array): void {
+  const view = new DataView(data.buffer, data.byteOffset + offset, KEPT_ROW_BYTES);
+  const start = view.getFloat64(ROW_START_AT, true);
+  writeFlowKey(
+    out,
+    data.subarray(offset + 16, offset + 32),
+    data.subarray(offset + 32, offset + 48),
+    view.getUint16(80, true),
+    view.getUint16(82, true),
+    data[offset + 84],
+    Number.isNaN(start) ? null : start,
+  );
 }

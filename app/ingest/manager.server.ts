@@ -4,7 +4,8 @@ import type { FlowRecord } from "~/flow/record";
 import { Reservoir, type Kept } from "~/sampling/reservoir";
 import type { UniformSource } from "~/sampling/uniform";
 import { toColumns, type KeptColumns } from "~/query/columns";
-import { decodeKeptRow, decodeRowRecord, encodeKeptRows, KEPT_ROW_BYTES, packFlowRecords, ROW_BYTES_AT, ROW_PACKETS_AT, ROW_START_AT, type PackedFlows } from "./kept-codec";
+import { coordinatedUniform, flowKeyLength } from "~/sampling/coordinated";
+import { decodeKeptRow, decodeRowRecord, encodeKeptRows, flowKeyOfRow, KEPT_ROW_BYTES, packFlowRecords, ROW_BYTES_AT, ROW_PACKETS_AT, ROW_START_AT, type PackedFlows } from "./kept-codec";
 import { windowStartOf } from "./window";
 
 /** A kept flow record and its row number inside its reservoir (-1 until stored). */
@@ -19,6 +20,11 @@ export interface TenantSampling {
   sampleSize: number;
   windowSeconds: number;
   weightAttribute: "bytes" | "packets";
+  /**
+   * The tenant's 16-byte SipHash key when it samples with coordinated priorities: each
+   * record's u is then `coordinatedUniform(key, flow key)` instead of a random draw.
+   */
+  coordinationKey?: Uint8Array | null;
 }
 
 export interface IngestBatch {
@@ -112,7 +118,25 @@ export class ReservoirManager {
 
   /** Applies one validated batch and resolves once it is committed. */
   ingest(batch: IngestBatch): Promise<IngestAnswer> {
-    const run = this.queue.then(() => this.apply(batch));
+    const run = this.queue.then(() =>
+      this.apply(batch).catch((error: unknown) => {
+        // Something else rewrote a reservoir this node held in memory (a roll-up or an import
+        // in another process): nothing was stored; apply again from what SQLite holds now.
+        if (!isReservoirChanged(error)) throw error;
+        return this.apply(batch);
+      }),
+    );
+    this.queue = run.catch(() => undefined);
+    return run;
+  }
+
+  /**
+   * Runs `change` (an import, a merge, a roll-up) between ingest batches, so none of this
+   * node's batches interleaves with it, then forgets every live reservoir: they reload
+   * from SQLite, which the change may have rewritten.
+   */
+  exclusive<T>(change: () => Promise<T>): Promise<T> {
+    const run = this.queue.then(change).finally(() => this.clear());
     this.queue = run.catch(() => undefined);
     return run;
   }
@@ -178,6 +202,8 @@ export class ReservoirManager {
     }
 
     const byBytes = tenant.weightAttribute === "bytes";
+    const coordination = tenant.coordinationKey ?? null;
+    const flowKey = new Uint8Array(flowKeyLength);
     let batchBytes = 0n;
     try {
       touched.forEach((live) => {
@@ -200,7 +226,13 @@ export class ReservoirManager {
           const weight = byBytes ? bh * 2 ** 32 + bl : ph * 2 ** 32 + pl;
           // The record object is built only for the few rows that enter (O(k·log(n/k))), not for every row.
           const item = { seq: -1 } as KeptFlow;
-          const entry = live.reservoir.offer(item, weight);
+          let entry;
+          if (coordination === null) {
+            entry = live.reservoir.offer(item, weight);
+          } else {
+            flowKeyOfRow(rows, at, flowKey);
+            entry = live.reservoir.offer(item, weight, coordinatedUniform(coordination, flowKey));
+          }
           if (entry) {
             item.record = decodeRowRecord(rows, at);
             live.entered.add(entry);
@@ -248,7 +280,9 @@ export class ReservoirManager {
 
   /** The statements that store what one batch changed in one reservoir; assigns seqs to newcomers. */
   private persistStatements(live: Live, now: number): InStatement[] {
-    const statements: InStatement[] = [];
+    // Aborts the transaction unless the row is still at the version this node holds
+    // (trigger in drizzle/0002): a roll-up or import elsewhere may have rewritten it.
+    const statements: InStatement[] = [{ sql: "INSERT INTO reservoir_expectations (id, next_seq) VALUES (?, ?)", args: [live.id, live.nextSeq] }];
     const newcomers = [...live.entered];
     const firstSeq = live.nextSeq;
     newcomers.forEach((entry, i) => (entry.item.seq = firstSeq + i));
@@ -350,4 +384,9 @@ export class ReservoirManager {
       args: [now - ttl],
     });
   }
+}
+
+/** True for the abort of the version check in `persistStatements`. */
+export function isReservoirChanged(error: unknown): boolean {
+  return error instanceof Error && error.message.includes("weir_reservoir_changed");
 }

@@ -77,8 +77,12 @@ export async function findTenantKey(
   return row;
 }
 
-/** The names of a tenant's collectors, for the form's suggestions. */
+/** The names of a tenant's stream collectors (keys cannot send to a merge), for the form's suggestions. */
 export async function listCollectorNames(db: Db, tenantId: number): Promise<string[]> {
-  const rows = await db.select({ name: collectors.name }).from(collectors).where(eq(collectors.tenantId, tenantId)).orderBy(asc(collectors.name));
+  const rows = await db
+    .select({ name: collectors.name })
+    .from(collectors)
+    .where(and(eq(collectors.tenantId, tenantId), eq(collectors.kind, "stream")))
+    .orderBy(asc(collectors.name));
   return rows.map((r) => r.name);
 }

@@ -60,6 +60,7 @@ interface ReservoirRow {
  */
 export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, query: EstimateQuery): Promise<EstimateAnswer> {
   const metric = query.metric ?? tenant.weightAttribute;
+  await refuseOverlap(ctx.db, tenant.id, query.where.collectors);
   const rows = await reservoirsInRange(ctx.db, tenant.id, query);
 
   const keptBound = rows.reduce((sum, r) => sum + Math.min(r.k, r.records), 0);
@@ -96,6 +97,32 @@ export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, 
   });
 }
 
+/**
+ * A merged collector holds a sample of its inputs' records: naming it together with one of
+ * its inputs, or two merges that share an input, would count those records twice.
+ */
+async function refuseOverlap(db: Db, tenantId: number, names: readonly string[]): Promise<void> {
+  if (names.length < 2) return;
+  const found = await db.$client.execute({
+    sql: `SELECT c.name, m.inputs FROM merges m JOIN collectors c ON c.id = m.collector_id WHERE m.tenant_id = ? AND c.name IN (${names.map(() => "?").join(", ")})`,
+    args: [tenantId, ...names],
+  });
+  const claimedBy = new Map<string, string>();
+  for (const row of found.rows) {
+    const merge = String(row[0]);
+    for (const input of JSON.parse(String(row[1])) as string[]) {
+      const other = names.includes(input) ? input : claimedBy.get(input);
+      if (other !== undefined) {
+        const message = names.includes(input)
+          ? `names both ${merge} and ${input}, which ${merge} merges: their records would count twice. Name one of them`
+          : `names both ${merge} and ${other}, which both merge ${input}: its records would count twice. Name one of them`;
+        throw new ApiError(422, "overlapping_collectors", `Invalid query: where.collectors ${message}.`, { details: [{ path: "where.collectors", message }] });
+      }
+      claimedBy.set(input, merge);
+    }
+  }
+}
+
 /** The reservoir rows with data in range: one statement on the (tenant_id, window_start) index. */
 async function reservoirsInRange(db: Db, tenantId: number, query: EstimateQuery): Promise<ReservoirRow[]> {
   const names = query.where.collectors;
@@ -104,6 +131,9 @@ async function reservoirsInRange(db: Db, tenantId: number, query: EstimateQuery)
   if (names.length > 0) {
     byName = ` AND c.name IN (${names.map(() => "?").join(", ")})`;
     args.push(...names);
+  } else {
+    // A merged collector's records are already counted in its inputs: only by name.
+    byName = " AND c.kind = 'stream'";
   }
   const found = await db.$client.execute({
     sql:

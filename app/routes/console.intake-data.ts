@@ -80,7 +80,8 @@ async function intakeSnapshot(
   const run = (sql: string, args: InValue[]) => client.execute({ sql, args });
 
   const [collectorRows, rateRows, reservoirRows] = await Promise.all([
-    run("SELECT id, name, last_seen_at FROM collectors WHERE tenant_id = ? ORDER BY name", [tenant.id]),
+    // Merged collectors receive no records; the Merge page lists them.
+    run("SELECT id, name, last_seen_at FROM collectors WHERE tenant_id = ? AND kind = 'stream' ORDER BY name", [tenant.id]),
     run(
       "SELECT collector_id, SUM(record_count), COUNT(*) FROM ingest_batches WHERE tenant_id = ? AND received_at > ? AND received_at <= ? GROUP BY collector_id",
       [tenant.id, now - RATE_SECONDS * 1000, now],

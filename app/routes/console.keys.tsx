@@ -7,7 +7,7 @@ import { Button, EmptyState, ErrorState, Field, inputClass, PageHeader, Panel } 
 import { collectorNameRule, findTenantKey, keyActionSchema, listCollectorNames, listTenantKeys, type KeyRow } from "~/keys/keys.server";
 import { SCOPE_CHOICES, SCOPE_HELP, scopeLabel, type ScopeChoice } from "~/keys/scope";
 import { SecretOnce } from "~/keys/SecretOnce";
-import { ensureCollector } from "~/tenants.server";
+import { ensureCollector, MergedCollectorError } from "~/tenants.server";
 import type { Route } from "./+types/console.keys";
 
 export { ErrorBoundary } from "~/components/ErrorPanel";
@@ -62,7 +62,16 @@ export async function action({ request, context, params }: Route.ActionArgs) {
 
   if (parsed.data.intent === "create") {
     const { collector: name, scope } = parsed.data;
-    const collector = await ensureCollector(context.db, tenant.id, name);
+    let collector;
+    try {
+      collector = await ensureCollector(context.db, tenant.id, name);
+    } catch (error) {
+      if (!(error instanceof MergedCollectorError)) throw error;
+      return data(
+        { intent: "create" as const, ok: false as const, message: "Fix the marked fields and try again.", fieldErrors: { collector: error.message } as FieldErrors, values: { collector: name, scope: scope as string } },
+        { status: 409 },
+      );
+    }
     const created = await createApiKey(context.db, { tenantId: tenant.id, collectorId: collector.id, scopes: scopesFor(scope), createdBy: actor.label });
     await recordAudit(context.db, {
       tenantId: tenant.id,

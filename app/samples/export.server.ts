@@ -67,6 +67,9 @@ async function reservoirIds(db: Db, tenantId: number, range: ExportRange): Promi
   if (range.collectors.length > 0) {
     byName = ` AND c.name IN (${range.collectors.map(() => "?").join(", ")})`;
     args.push(...range.collectors);
+  } else {
+    // Merged collectors hold samples of the others' records: exported only when named.
+    byName = " AND c.kind = 'stream'";
   }
   const found = await db.$client.execute({
     sql:

@@ -44,20 +44,28 @@ export function flowKeyBytes(record: FlowRecord): Uint8Array {
     throw new RangeError("flow addresses must be 16 bytes (IPv4 stored IPv4-mapped)");
   }
   const bytes = new Uint8Array(flowKeyLength);
-  const view = new DataView(bytes.buffer);
-  bytes.set(record.src, 0);
-  bytes.set(record.dst, 16);
-  view.setUint16(32, record.sport);
-  view.setUint16(34, record.dport);
-  view.setUint8(36, record.proto);
-  if (record.start === null) {
+  writeFlowKey(bytes, record.src, record.dst, record.sport, record.dport, record.proto, record.start);
+  return bytes;
+}
+
+/**
+ * Writes the key of `flowKeyBytes` into `out` (45 bytes) from the flow's fields, so that
+ * ingest can key packed rows without building record objects.
+ */
+export function writeFlowKey(out: Uint8Array, src: Uint8Array, dst: Uint8Array, sport: number, dport: number, proto: number, start: number | null): void {
+  const view = new DataView(out.buffer, out.byteOffset, flowKeyLength);
+  out.set(src, 0);
+  out.set(dst, 16);
+  view.setUint16(32, sport);
+  view.setUint16(34, dport);
+  view.setUint8(36, proto);
+  if (start === null) {
     view.setUint32(37, NO_START);
     view.setUint32(41, NO_START);
   } else {
-    view.setUint32(37, Math.floor(record.start / 2 ** 32));
-    view.setUint32(41, record.start % 2 ** 32);
+    view.setUint32(37, Math.floor(start / 2 ** 32));
+    view.setUint32(41, start % 2 ** 32);
   }
-  return bytes;
 }
 
 /**
