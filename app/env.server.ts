@@ -34,6 +34,12 @@ export const envSchema = z
     // parse worker measured faster than two.
     INGEST_PARSE_WORKERS: z.coerce.number().int().min(0).default(() => Math.max(1, availableParallelism() - 1)),
     IDEMPOTENCY_TTL_HOURS: z.coerce.number().positive().default(24),
+    // Largest sample file an import (POST /api/v1/samples, the console upload) accepts.
+    SAMPLES_MAX_BODY_BYTES: z.coerce.number().int().positive().default(67_108_864),
+    // How often the server rolls fine windows up into hourly ones and deletes expired windows
+    // (each tenant's retention settings); 0 turns the timer off (run `npm run admin -- retention run`).
+    // In a deployment of several nodes on one database, leave it on for one node only.
+    RETENTION_INTERVAL_MINUTES: z.coerce.number().int().min(0).default(60),
     // Console sign-in. With GITHUB_CLIENT_ID/SECRET set, Weir signs people in through GitHub;
     // without them, outside production, it starts a local fake GitHub (see scripts/fakes).
     GITHUB_CLIENT_ID: z.string().min(1).optional(),
