@@ -6,6 +6,7 @@ export default [
   route("api/v1/flows", "routes/api.v1.flows.ts"),
   route("api/v1/estimate", "routes/api.v1.estimate.ts"),
   route("api/v1/samples", "routes/api.v1.samples.ts"),
+  route("api/v1/merge", "routes/api.v1.merge.ts"),
 
   route("signin", "routes/signin.tsx"),
   route("signout", "routes/signout.ts"),
@@ -23,6 +24,9 @@ export default [
     route("intake", "routes/console.intake.tsx"),
     // JSON for the Intake page's polling (a resource route: no component).
     route("intake-data", "routes/console.intake-data.ts"),
+    route("merge", "routes/console.merge.tsx"),
+    // Sample-file uploads from the Merge page (a resource route: multipart in, JSON out).
+    route("merge/upload", "routes/console.merge-upload.ts"),
     route("keys", "routes/console.keys.tsx"),
     route("settings", "routes/console.settings.tsx"),
     route("people", "routes/console.people.tsx"),

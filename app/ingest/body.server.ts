@@ -2,6 +2,7 @@ import { promisify } from "node:util";
 import { gunzip } from "node:zlib";
 import { ApiError } from "~/auth/api-keys.server";
 import { parseFlowBatch } from "~/flow/record";
+import { readLimitedBody } from "~/http/limited-body.server";
 import { packFlowRecords, type PackedFlows } from "./kept-codec";
 
 const gunzipAsync = promisify(gunzip);
@@ -67,7 +68,7 @@ export async function readFlowBatch(request: Request, limits: BodyLimits, parser
   if (encoding !== "identity" && encoding !== "gzip") {
     throw new ApiError(415, "unsupported_media_type", `Content-Encoding must be gzip or absent, not ${encoding}.`);
   }
-  const body = await readLimited(request, limits.maxBodyBytes);
+  const body = await readLimitedBody(request, limits.maxBodyBytes, () => tooLarge(limits.maxBodyBytes));
   const outcome = await parser.parse({ body, ndjson, gzip: encoding === "gzip", limits });
   if (!outcome.ok) throw new ApiError(outcome.status, outcome.code, outcome.message, outcome.extra);
   return outcome.packed;
@@ -108,34 +109,6 @@ async function decodeValues({ body, ndjson, gzip, limits }: ParseJob): Promise<u
     throw new ApiError(400, "invalid_body", "The body is not valid UTF-8.");
   }
   return ndjson ? parseNdjson(text, limits.maxRecords) : parseJsonArray(text, limits.maxRecords);
-}
-
-// The result owns its whole ArrayBuffer (unlike Buffer.concat, which may return a slice
-// of Node's shared pool), so it can be transferred to a worker.
-async function readLimited(request: Request, maxBytes: number): Promise<Uint8Array<ArrayBuffer>> {
-  const declared = Number(request.headers.get("content-length"));
-  if (Number.isFinite(declared) && declared > maxBytes) throw tooLarge(maxBytes);
-  if (!request.body) return new Uint8Array(0);
-  const reader = request.body.getReader();
-  const chunks: Uint8Array[] = [];
-  let total = 0;
-  for (;;) {
-    const { done, value } = await reader.read();
-    if (done) break;
-    total += value.byteLength;
-    if (total > maxBytes) {
-      await reader.cancel().catch(() => undefined);
-      throw tooLarge(maxBytes);
-    }
-    chunks.push(value);
-  }
-  const body = new Uint8Array(total);
-  let at = 0;
-  for (const chunk of chunks) {
-    body.set(chunk, at);
-    at += chunk.byteLength;
-  }
-  return body;
 }
 
 function tooLarge(maxBytes: number, when = ""): ApiError {

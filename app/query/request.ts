@@ -134,16 +134,30 @@ function fail(ctx: z.RefinementCtx, input: unknown, message: string, path: Prope
   return z.NEVER;
 }
 
+// ISO 8601 writes years with four digits, and a JavaScript Date ends at 8.64e15 ms (ECMA-262
+// TimeClip): times from the year 10000 on are refused rather than crash a formatter.
+const END_OF_TIME_MS = Date.UTC(10000, 0, 1);
+
 const time = z.unknown().transform((value, ctx): number => {
   if (value === undefined || value === null) return fail(ctx, value, `is required: ${TIME_FORM}`);
+  const inRange = (ms: number) => (ms < END_OF_TIME_MS ? ms : fail(ctx, value, "must be before 10000-01-01T00:00:00Z"));
   if (typeof value === "number") {
-    return Number.isSafeInteger(value) && value >= 0 ? value : fail(ctx, value, `must be ${TIME_FORM} (a non-negative whole number)`);
+    return Number.isSafeInteger(value) && value >= 0 ? inRange(value) : fail(ctx, value, `must be ${TIME_FORM} (a non-negative whole number)`);
   }
   if (typeof value !== "string") return fail(ctx, value, `must be ${TIME_FORM}`);
-  if (/^\d{1,16}$/.test(value)) return Number(value);
+  if (/^\d{1,16}$/.test(value)) return inRange(Number(value));
   const ms = isoToMs(value);
   return typeof ms === "number" ? ms : fail(ctx, value, ms);
 });
+
+/**
+ * One time of a request as epoch ms, in the forms the estimate API takes (ISO 8601 with a
+ * timezone, a bare date as UTC midnight, or epoch milliseconds as a number or digits), so
+ * every endpoint that takes a range reads times alike.
+ *
+ * @example requestTimeSchema.parse("2024-05-01T02:00:00Z") // 1714528800000
+ */
+export const requestTimeSchema = time;
 
 const cidr = z.unknown().transform((value, ctx): Prefix => {
   if (typeof value !== "string") return fail(ctx, value, "must be CIDR text such as 198.51.100.0/24 or 2001:db8::/32");

@@ -1,7 +1,10 @@
+import type { AppLoadContext } from "react-router";
 import { ApiError, authenticateKey, touchKey } from "~/auth/api-keys.server";
 import { parseEstimateSearchParams } from "~/query/request";
-import { toSampleFile } from "~/samples/document";
+import { parseSampleFile, SampleFileError, toSampleFile } from "~/samples/document";
 import { exportSamples } from "~/samples/export.server";
+import { decodeUtf8, discardBody, gunzipLimited, importSampleSet, invalidSampleFile, parseImportCollector, readLimitedBody } from "~/samples/import.server";
+import { MergedCollectorError } from "~/tenants.server";
 import type { Route } from "./+types/api.v1.samples";
 
 // Samples change with every ingest batch.
@@ -34,8 +37,69 @@ export async function loader({ request, context }: Route.LoaderArgs) {
   }
 }
 
-export function action() {
-  return new ApiError(405, "method_not_allowed", "Use GET to export samples.").toResponse({ ...NO_STORE, Allow: "GET, HEAD" });
+/**
+ * POST /api/v1/samples?collector=NAME — imports a sample file (the body, application/json,
+ * gzip allowed) into the collector NAME: each of the file's windows is merged into that
+ * collector's reservoir of the same window, all in one transaction (docs/sample-file.md,
+ * "Importing"). Needs a key with the ingest scope.
+ */
+export async function action({ request, context }: Route.ActionArgs) {
+  if (request.method !== "POST") {
+    await discardBody(request);
+    return new ApiError(405, "method_not_allowed", "Use GET to export samples and POST to import a sample file.").toResponse({ ...NO_STORE, Allow: "GET, HEAD, POST" });
+  }
+  try {
+    const principal = await authenticateKey(context.db, request, "ingest");
+    touchKey(context.db, principal.keyId).catch((error: unknown) => context.logger.warn({ err: error }, "could not record key use"));
+    const collector = parseImportParams(new URL(request.url).searchParams);
+    const set = parseSampleFile(await readSampleFile(request, context));
+    const summary = await importSampleSet(
+      { db: context.db, manager: context.manager, node: context.env.NODE_ID },
+      principal.tenant,
+      collector,
+      set,
+      { id: null, label: `key ${principal.prefix}` },
+    );
+    return Response.json(summary, { headers: NO_STORE });
+  } catch (error) {
+    // Refused before the body was read (key, parameters, content type): read it off first.
+    await discardBody(request);
+    if (error instanceof SampleFileError) return invalidSampleFile(error).toResponse(NO_STORE);
+    if (error instanceof MergedCollectorError) return new ApiError(409, "merged_collector", error.message).toResponse(NO_STORE);
+    if (error instanceof ApiError) return error.toResponse(NO_STORE);
+    context.logger.error({ err: error }, "sample import failed");
+    return new ApiError(500, "internal_error", "The sample file could not be imported; nothing was stored. The server log has the cause.").toResponse(NO_STORE);
+  }
+}
+
+const IMPORT_PARAMETERS = ["collector"];
+
+/** The one parameter of an import, `collector`, validated as every collector name is. */
+function parseImportParams(params: URLSearchParams): string {
+  const details = [...new Set(params.keys())]
+    .filter((name) => !IMPORT_PARAMETERS.includes(name))
+    .map((path) => ({ path, message: `is not a known parameter (known: ${IMPORT_PARAMETERS.join(", ")})` }));
+  if (params.getAll("collector").length > 1) details.push({ path: "collector", message: "is given more than once; an import goes into one collector" });
+  if (details.length > 0) {
+    const more = details.length > 1 ? ` (and ${details.length - 1} more)` : "";
+    throw new ApiError(400, "invalid_query", `Invalid query: ${details[0].path}: ${details[0].message}${more}.`, { details });
+  }
+  return parseImportCollector(params.get("collector"), "collector", "invalid_query");
+}
+
+/** The body as text: JSON only, gzip allowed, never more than SAMPLES_MAX_BODY_BYTES in memory. */
+async function readSampleFile(request: Request, context: AppLoadContext): Promise<string> {
+  const type = (request.headers.get("content-type") ?? "").split(";")[0].trim().toLowerCase();
+  if (type !== "application/json") {
+    throw new ApiError(415, "unsupported_media_type", `Content-Type must be application/json (a sample file)${type ? `, not ${type}` : ""}.`);
+  }
+  const encoding = (request.headers.get("content-encoding") ?? "identity").trim().toLowerCase();
+  if (encoding !== "identity" && encoding !== "gzip") {
+    throw new ApiError(415, "unsupported_media_type", `Content-Encoding must be gzip or absent, not ${encoding}.`);
+  }
+  const maxBytes = context.env.SAMPLES_MAX_BODY_BYTES;
+  const body = await readLimitedBody(request, maxBytes);
+  return decodeUtf8(encoding === "gzip" ? await gunzipLimited(body, maxBytes) : body);
 }
 
 /**

@@ -1,11 +1,12 @@
-import { and, asc, eq, gt } from "drizzle-orm";
+import { and, eq, gt } from "drizzle-orm";
 import { useMemo, useState } from "react";
 import { useLoaderData, useNavigate, useSearchParams, type ShouldRevalidateFunctionArgs } from "react-router";
 import { requireMember } from "~/auth/guards.server";
 import { SliceForm } from "~/components/slice/SliceForm";
 import { SliceResults } from "~/components/slice/SliceResults";
 import { Button, Cautions, EmptyState, PageHeader, Panel } from "~/components/ui";
-import { collectors, reservoirs } from "~/db/schema.server";
+import { reservoirs } from "~/db/schema.server";
+import { collectorChoices } from "~/merges/merges.server";
 import { parseSliceParams, sliceSearch, type SliceState } from "~/slice/query-state";
 import type { Route } from "./+types/console.slice";
 
@@ -13,11 +14,14 @@ export { ErrorBoundary } from "~/components/ErrorPanel";
 
 export const meta: Route.MetaFunction = ({ data }) => [{ title: `Slice · ${data?.tenant.name ?? "Tenant"} · Weir` }];
 
-/** Slice (every role): the tenant's collectors for the form, and whether it has any data yet. */
+/**
+ * Slice (every role): the tenant's collectors for the form (stream collectors, and merges
+ * with their inputs), and whether it has any data yet.
+ */
 export async function loader({ request, context, params }: Route.LoaderArgs) {
   const { tenant } = await requireMember(request, context, params.tenant);
-  const [names, anyData] = await Promise.all([
-    context.db.select({ name: collectors.name }).from(collectors).where(eq(collectors.tenantId, tenant.id)).orderBy(asc(collectors.name)),
+  const [choices, anyData] = await Promise.all([
+    collectorChoices(context.db, tenant.id),
     context.db
       .select({ id: reservoirs.id })
       .from(reservoirs)
@@ -26,7 +30,7 @@ export async function loader({ request, context, params }: Route.LoaderArgs) {
   ]);
   return {
     tenant: { slug: tenant.slug, name: tenant.name, windowSeconds: tenant.windowSeconds, weightAttribute: tenant.weightAttribute },
-    collectors: names.map((c) => c.name),
+    collectors: choices,
     hasData: anyData.length > 0,
     // For the "send flows" example; PUBLIC_URL when set, since a proxy may hide the public origin.
     origin: context.env.PUBLIC_URL?.replace(/\/$/, "") ?? new URL(request.url).origin,

@@ -218,6 +218,21 @@ describe.each([
       expect((await res.json()).error).toMatchObject({ code: "payload_too_large", limit: "INGEST_MAX_BODY_BYTES" });
     });
 
+    it("reads off a body far over the limit, so the client gets its 413 instead of a reset connection", async () => {
+      // 4 MiB against a 64 KiB limit, streamed without Content-Length (chunked) and with it.
+      const big = JSON.stringify(flows(90)).padEnd(4 * 1024 * 1024, " ");
+      for (const body of [big, new Blob([big]).stream()]) {
+        const res = await fetch(`${t.url}/api/v1/flows`, {
+          method: "POST",
+          headers: { authorization: `Bearer ${key}`, "content-type": "application/json" },
+          body,
+          duplex: "half",
+        } as RequestInit);
+        expect(res.status).toBe(413);
+        expect((await res.json()).error.code).toBe("payload_too_large");
+      }
+    });
+
     it("stops a gzip bomb at the limit after decompression and stays up", async () => {
       // 64 MiB of spaces compresses to about 64 KiB of gzip; the limit is 64 KiB decompressed.
       const bomb = gzipSync(Buffer.alloc(64 * 1024 * 1024, " "), { level: 9 });

@@ -154,6 +154,9 @@ describe("an invalid request is refused with the field and the reason", () => {
     [{ from: "1969-12-31T23:59:59Z", to: DAY.to }, "from", /before 1970-01-01/], // epoch ms are non-negative
     [{ from: "1970-01-01T00:30:00+01:00", to: DAY.to }, "from", /before 1970-01-01/],
     [{ from: true, to: DAY.to }, "from", /ISO 8601/],
+    // ISO 8601 years have four digits; ECMA-262 TimeClip ends dates at 8.64e15 ms: later is refused, not a crash.
+    [{ from: "8700000000000000", to: "8700000000000001" }, "from", /must be before 10000-01-01T00:00:00Z/],
+    [{ from: DAY.from, to: Date.UTC(10000, 0, 1) }, "to", /must be before 10000-01-01T00:00:00Z/],
     [{ ...DAY, where: { src: ["198.51.100.7/24"] } }, "where.src[0]", /^198\.51\.100\.7\/24 has host bits set; did you mean 198\.51\.100\.0\/24\?$/], // RFC 4632 §3.1
     [{ ...DAY, where: { dst: ["2001:db8::1/32"] } }, "where.dst[0]", /did you mean 2001:db8::\/32\?/],
     [{ ...DAY, where: { srcExclude: ["198.51.100.0/33"] } }, "where.srcExclude[0]", /prefix length must be from 0 to 32/],

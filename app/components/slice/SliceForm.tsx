@@ -9,10 +9,18 @@ import { ChipInput } from "./ChipInput";
 
 const METRIC_LABELS: Record<Metric, string> = { bytes: "Bytes", packets: "Packets", flows: "Flows (records)" };
 
+/** A collector to pick: a stream collector, or a merge with the collectors it merged. */
+export interface CollectorChoice {
+  name: string;
+  kind: "stream" | "merge";
+  /** A merge's inputs; empty for a stream collector. */
+  inputs: string[];
+}
+
 interface SliceFormProps {
   state: SliceState;
   onChange(next: SliceState): void;
-  collectors: string[];
+  collectors: CollectorChoice[];
   weightAttribute: "bytes" | "packets";
 }
 
@@ -186,31 +194,90 @@ function NumberField({ label, value, min, max, onCommit, hint, prefix }: { label
   );
 }
 
-function Collectors({ known, chosen, onChange }: { known: string[]; chosen: string[]; onChange(v: string[]): void }) {
+/**
+ * Stream collectors and merges apart. A merge holds a sample of its inputs' records, so it
+ * counts only when picked and never with one of its inputs (the estimate API refuses that
+ * with 422); with nothing picked, every stream collector counts and merges are left out.
+ */
+function Collectors({ known, chosen, onChange }: { known: CollectorChoice[]; chosen: string[]; onChange(v: string[]): void }) {
+  const streams = known.filter((c) => c.kind === "stream");
+  const merges = known.filter((c) => c.kind === "merge");
   // A shared link may name a collector this tenant does not have; keep it visible so it can be removed.
-  const names = [...known, ...chosen.filter((c) => !known.includes(c))];
+  const unknown = chosen.filter((name) => !known.some((c) => c.name === name));
+  const toggle = (name: string) => onChange(chosen.includes(name) ? chosen.filter((c) => c !== name) : [...chosen, name]);
+  const overlap = overlapOf(merges, chosen);
   return (
     <fieldset className="flex flex-col gap-2 border-t border-river-800 pt-4">
       <legend className="pr-2 text-xs font-semibold tracking-wide text-sand-300 uppercase">Collectors</legend>
-      {names.length === 0 ? (
+      {known.length === 0 && unknown.length === 0 ? (
         <p className="text-sm text-river-300">This tenant has no collectors yet.</p>
       ) : (
-        <div className="flex max-h-44 flex-col gap-1 overflow-y-auto pr-1">
-          {names.map((name) => {
-            const on = chosen.includes(name);
-            return (
-              <label key={name} className="inline-flex items-center gap-2 text-sm text-river-100">
-                <input type="checkbox" checked={on} onChange={() => onChange(on ? chosen.filter((c) => c !== name) : [...chosen, name])} className="accent-sand-300" />
-                <span className="font-mono">{name}</span>
-                {known.includes(name) ? null : <span className="text-xs text-red-300">not a collector of this tenant</span>}
-              </label>
-            );
-          })}
+        <div className="flex max-h-60 flex-col gap-3 overflow-y-auto pr-1">
+          {streams.length > 0 || unknown.length > 0 ? (
+            <div role="group" aria-label="Stream collectors" className="flex flex-col gap-1">
+              {streams.map((c) => (
+                <CollectorBox key={c.name} name={c.name} on={chosen.includes(c.name)} onToggle={() => toggle(c.name)} />
+              ))}
+              {unknown.map((name) => (
+                <CollectorBox key={name} name={name} on onToggle={() => toggle(name)} note={<span className="text-xs text-red-300">not a collector of this tenant</span>} />
+              ))}
+            </div>
+          ) : null}
+          {merges.length > 0 ? (
+            <div role="group" aria-labelledby="slice-merges-label" className="flex flex-col gap-1">
+              <p id="slice-merges-label" className="text-xs font-medium text-river-200">
+                Merges
+              </p>
+              {merges.map((c) => (
+                <CollectorBox
+                  key={c.name}
+                  name={c.name}
+                  on={chosen.includes(c.name)}
+                  onToggle={() => toggle(c.name)}
+                  note={<span className="text-xs text-river-300">of {c.inputs.join(", ")}</span>}
+                />
+              ))}
+            </div>
+          ) : null}
         </div>
       )}
-      <p className="text-xs text-river-300">{chosen.length === 0 ? "None chosen: every collector." : `${chosen.length} chosen.`}</p>
+      {overlap ? (
+        <p role="alert" className="text-xs text-red-300">
+          {overlap}
+        </p>
+      ) : null}
+      <p className="text-xs text-river-300">
+        {chosen.length === 0 ? "None chosen: every stream collector." : `${chosen.length} chosen.`}
+        {merges.length > 0
+          ? " A merge holds a sample of its inputs' records: it counts only when picked, and not together with its own inputs."
+          : null}
+      </p>
     </fieldset>
   );
+}
+
+function CollectorBox({ name, on, onToggle, note }: { name: string; on: boolean; onToggle(): void; note?: ReactNode }) {
+  return (
+    <label className="inline-flex items-center gap-2 text-sm text-river-100">
+      <input type="checkbox" checked={on} onChange={onToggle} className="accent-sand-300" />
+      <span className="font-mono">{name}</span>
+      {note}
+    </label>
+  );
+}
+
+/** Why the chosen collectors would count records twice, or null: a merge with one of its inputs, or two merges sharing one. */
+function overlapOf(merges: CollectorChoice[], chosen: string[]): string | null {
+  const claimedBy = new Map<string, string>();
+  for (const merge of merges.filter((m) => chosen.includes(m.name))) {
+    for (const input of merge.inputs) {
+      if (chosen.includes(input)) return `${merge.name} merges ${input}: pick one of them, or their records count twice.`;
+      const other = claimedBy.get(input);
+      if (other !== undefined) return `${other} and ${merge.name} both merge ${input}: pick one of them, or its records count twice.`;
+      claimedBy.set(input, merge.name);
+    }
+  }
+  return null;
 }
 
 const toInput = (ms: number) => new Date(ms).toISOString().slice(0, 16);

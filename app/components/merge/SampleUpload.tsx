@@ -1,0 +1,229 @@
+import { useId, useRef, useState, type FormEvent } from "react";
+import { Button, Cautions, Field, Panel, inputClass } from "../ui";
+
+/** What the upload route answers on success (see app/samples/import.server.ts). */
+export interface UploadSummary {
+  collector: string;
+  windows: number;
+  mergedWithExisting: number;
+  kept: number;
+  records: number | string;
+  from: string | null;
+  to: string | null;
+}
+
+interface UploadError {
+  code: string;
+  message: string;
+  details?: { path: string; message: string }[];
+}
+
+type UploadState =
+  | { phase: "idle" }
+  | { phase: "sending"; sentBytes: number; totalBytes: number }
+  | { phase: "done"; summary: UploadSummary }
+  | { phase: "failed"; error: UploadError };
+
+/** "1.5 MiB": binary units, as the body limit is stated in bytes. */
+export function formatBytes(bytes: number): string {
+  if (bytes < 1024) return `${bytes} B`;
+  const units = ["KiB", "MiB", "GiB"];
+  let value = bytes / 1024;
+  let unit = 0;
+  while (value >= 1024 && unit < units.length - 1) {
+    value /= 1024;
+    unit += 1;
+  }
+  return `${value.toFixed(value < 10 ? 1 : 0)} ${units[unit]}`;
+}
+
+function readError(status: number, text: string): UploadError {
+  try {
+    // The import's errors are { error: { code, message, details } }; the console's role checks answer { message }.
+    const body = JSON.parse(text) as { error?: UploadError; message?: unknown };
+    if (body.error && typeof body.error.message === "string") return body.error;
+    if (typeof body.message === "string") return { code: `http_${status}`, message: body.message };
+  } catch {
+    // Not JSON (a proxy's page, for instance): fall through to the status line.
+  }
+  return { code: "upload_failed", message: `The server answered ${status}.` };
+}
+
+/**
+ * Uploads one sample file (exported by GET /api/v1/samples) into a collector of the tenant.
+ * XMLHttpRequest rather than fetch, because only its `upload.onprogress` reports the bytes sent.
+ */
+export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug: string; collectors: string[]; maxBytes: number }) {
+  const id = useId();
+  const formRef = useRef<HTMLFormElement>(null);
+  const [state, setState] = useState<UploadState>({ phase: "idle" });
+  const [fileError, setFileError] = useState<string | undefined>();
+
+  function onSubmit(event: FormEvent<HTMLFormElement>) {
+    event.preventDefault();
+    const form = new FormData(event.currentTarget);
+    const file = form.get("file");
+    if (!(file instanceof File) || file.size === 0) {
+      setFileError("Choose a sample file (.json) to upload.");
+      return;
+    }
+    if (file.size > maxBytes) {
+      setFileError(`The file is ${formatBytes(file.size)}; uploads are limited to ${formatBytes(maxBytes)} (${maxBytes} bytes).`);
+      return;
+    }
+    setFileError(undefined);
+    setState({ phase: "sending", sentBytes: 0, totalBytes: file.size });
+
+    const uploadPath = `/t/${encodeURIComponent(tenantSlug)}/merge/upload`;
+    const request = new XMLHttpRequest();
+    request.open("POST", uploadPath);
+    request.upload.onprogress = (progress) => {
+      if (progress.lengthComputable) setState({ phase: "sending", sentBytes: progress.loaded, totalBytes: progress.total });
+    };
+    request.onload = () => {
+      // XMLHttpRequest follows redirects by itself: landing elsewhere means the session ended.
+      if (new URL(request.responseURL, window.location.href).pathname !== uploadPath) {
+        setState({ phase: "failed", error: { code: "signed_out", message: "Your session has ended. Sign in again, then upload the file once more." } });
+        return;
+      }
+      if (request.status >= 200 && request.status < 300) {
+        try {
+          setState({ phase: "done", summary: JSON.parse(request.responseText) as UploadSummary });
+          formRef.current?.reset();
+        } catch {
+          setState({ phase: "failed", error: { code: "upload_failed", message: "The server's answer could not be read." } });
+        }
+      } else {
+        setState({ phase: "failed", error: readError(request.status, request.responseText) });
+      }
+    };
+    request.onerror = () => setState({ phase: "failed", error: { code: "network_error", message: "The upload did not reach the server (network error)." } });
+    request.send(form);
+  }
+
+  const sending = state.phase === "sending";
+  return (
+    <Panel title="Upload a sample file">
+      <p className="mb-4 max-w-3xl text-sm text-river-200">
+        The file's windows become reservoirs of the collector you name, whatever collector the file came from. Where that collector already holds a
+        window, the two reservoirs are merged into one valid sample, so the file must not repeat records the collector already holds (they would
+        be counted twice). A file is applied whole or not at all.
+      </p>
+      <form ref={formRef} onSubmit={onSubmit} encType="multipart/form-data" className="grid gap-4 md:grid-cols-[1fr_1fr_auto] md:items-start">
+        <Field label="Collector" htmlFor={`${id}-collector`} hint="An existing collector, or a new name to create one.">
+          <input
+            id={`${id}-collector`}
+            name="collector"
+            required
+            maxLength={64}
+            list={`${id}-collectors`}
+            autoComplete="off"
+            placeholder="site-b-offline"
+            className={inputClass}
+            disabled={sending}
+          />
+          <datalist id={`${id}-collectors`}>
+            {collectors.map((name) => (
+              <option key={name} value={name} />
+            ))}
+          </datalist>
+        </Field>
+        <Field label="Sample file" htmlFor={`${id}-file`} error={fileError} hint={`JSON from the sample export, at most ${formatBytes(maxBytes)}.`}>
+          <input
+            id={`${id}-file`}
+            name="file"
+            type="file"
+            required
+            accept=".json,application/json"
+            aria-invalid={fileError ? true : undefined}
+            className={`${inputClass} file:mr-3 file:rounded file:border-0 file:bg-river-800 file:px-2 file:py-1 file:text-river-100`}
+            disabled={sending}
+            onChange={() => setFileError(undefined)}
+          />
+        </Field>
+        <div className="md:pt-6">
+          <Button type="submit" disabled={sending} className="min-w-28 justify-center">
+            {sending ? "Uploading…" : "Upload"}
+          </Button>
+        </div>
+      </form>
+
+      {state.phase === "sending" ? <UploadProgress sentBytes={state.sentBytes} totalBytes={state.totalBytes} /> : null}
+      {state.phase === "done" ? <UploadResult summary={state.summary} /> : null}
+      {state.phase === "failed" ? <UploadFailure error={state.error} /> : null}
+
+      <div className="mt-4">
+        <Cautions compact />
+      </div>
+    </Panel>
+  );
+}
+
+function UploadProgress({ sentBytes, totalBytes }: { sentBytes: number; totalBytes: number }) {
+  const percent = totalBytes > 0 ? Math.min(100, Math.round((sentBytes / totalBytes) * 100)) : 0;
+  return (
+    <div className="mt-4" role="status" aria-live="polite">
+      <div
+        className="h-2 w-full overflow-hidden rounded bg-river-800"
+        role="progressbar"
+        aria-label="Upload progress"
+        aria-valuemin={0}
+        aria-valuemax={100}
+        aria-valuenow={percent}
+      >
+        <div className="h-full bg-sand-300 transition-[width]" style={{ width: `${percent}%` }} />
+      </div>
+      <p className="mt-1 text-xs text-river-300">
+        {percent}% · {formatBytes(sentBytes)} of {formatBytes(totalBytes)}
+        {percent === 100 ? " · merging on the server…" : ""}
+      </p>
+    </div>
+  );
+}
+
+function UploadResult({ summary }: { summary: UploadSummary }) {
+  const range = summary.from && summary.to ? `${summary.from} – ${summary.to}` : "no windows";
+  return (
+    <div role="status" className="mt-4 rounded-md border border-emerald-400/40 bg-emerald-950/30 px-4 py-3 text-sm text-emerald-100">
+      <p className="font-medium">Imported into collector “{summary.collector}”.</p>
+      <dl className="mt-2 grid grid-cols-2 gap-x-6 gap-y-1 sm:grid-cols-4">
+        <div>
+          <dt className="text-xs text-emerald-300">windows stored</dt>
+          <dd className="tabular-nums">{summary.windows}</dd>
+        </div>
+        <div>
+          <dt className="text-xs text-emerald-300">merged with existing</dt>
+          <dd className="tabular-nums">{summary.mergedWithExisting}</dd>
+        </div>
+        <div>
+          <dt className="text-xs text-emerald-300">kept records</dt>
+          <dd className="tabular-nums">{summary.kept}</dd>
+        </div>
+        <div>
+          <dt className="text-xs text-emerald-300">records seen (exact)</dt>
+          <dd className="tabular-nums">{String(summary.records)}</dd>
+        </div>
+      </dl>
+      <p className="mt-2 text-xs text-emerald-300">Time range: {range}</p>
+    </div>
+  );
+}
+
+function UploadFailure({ error }: { error: UploadError }) {
+  const details = error.details ?? [];
+  return (
+    <div role="alert" className="mt-4 rounded-md border border-red-400/50 bg-red-950/30 px-4 py-3 text-sm text-red-100">
+      <p className="font-medium">Upload refused</p>
+      <p className="mt-1 text-red-200">{error.message}</p>
+      {details.length > 0 ? (
+        <ul className="mt-2 space-y-0.5 font-mono text-xs text-red-200">
+          {details.map((detail, index) => (
+            <li key={`${detail.path}-${index}`}>
+              <span className="text-red-300">{detail.path || "(file)"}</span>: {detail.message}
+            </li>
+          ))}
+        </ul>
+      ) : null}
+    </div>
+  );
+}
