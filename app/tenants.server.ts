@@ -27,13 +27,15 @@ export const newTenantSchema = z.object({
   windowSeconds: windowSecondsSchema.default(300),
   weightAttribute: z.enum(["bytes", "packets"]).default("bytes"),
   retentionDays: z.number().int().min(1).max(3650).default(30),
+  /** M; at least N (retentionDays). Default: a year, or N when that is longer. */
+  hourlyRetentionDays: z.number().int().min(1).max(3650).optional(),
 });
 
 export async function createTenant(db: Db, input: z.input<typeof newTenantSchema>): Promise<Tenant> {
   const t = newTenantSchema.parse(input);
   const [row] = await db
     .insert(tenants)
-    .values({ slug: t.slug, name: t.name ?? t.slug, sampleSize: t.sampleSize, windowSeconds: t.windowSeconds, weightAttribute: t.weightAttribute, retentionDays: t.retentionDays })
+    .values({ slug: t.slug, name: t.name ?? t.slug, sampleSize: t.sampleSize, windowSeconds: t.windowSeconds, weightAttribute: t.weightAttribute, retentionDays: t.retentionDays, hourlyRetentionDays: Math.max(t.hourlyRetentionDays ?? 365, t.retentionDays) })
     .returning();
   return row;
 }

@@ -10,7 +10,9 @@ import { runMigrations } from "~/db/migrate.server";
 import { apiKeys, collectors, tenants } from "~/db/schema.server";
 import { recordAudit } from "~/audit.server";
 import { emailSchema, ensureUserByEmail, roleSchema, setMembership } from "~/auth/users.server";
-import { collectorNameSchema, createTenant, ensureCollector, findTenantBySlug, listTenants, newTenantSchema } from "~/tenants.server";
+import { loadEnv } from "~/env.server";
+import { runRetention, type TenantRetentionReport } from "~/retention/rollup.server";
+import { collectorNameSchema, createTenant, ensureCollector, findTenantBySlug, listTenants, MergedCollectorError, newTenantSchema } from "~/tenants.server";
 
 const USAGE = `Usage: npm run admin -- <command> [options]
 
@@ -27,6 +29,11 @@ Commands:
                        Gives a person a role in a tenant (bootstraps the first admin);
                        they sign in to the console with the GitHub account whose
                        verified primary e-mail this is.
+  retention run [--tenant SLUG] [--now ISO-TIME]
+                       Rolls fine windows older than each tenant's fine-window days up
+                       into hourly windows and deletes windows older than its hourly
+                       days (Settings), as the server does every RETENTION_INTERVAL_MINUTES.
+                       --now runs as of another time (ISO 8601 with a timezone).
 
 Defaults: --sample-size 1024, --window-seconds 300 (one of 60, 300, 900, 3600),
 --weight bytes, --retention-days 30, --scope ingest.
@@ -64,6 +71,7 @@ const COMMANDS: Record<string, Command> = {
   "key list": { args: ["tenant"], options: {}, run: keyList },
   "key revoke": { args: ["prefix"], options: {}, run: keyRevoke },
   "user grant": { args: ["email", "tenant", "role"], options: {}, run: userGrant },
+  "retention run": { args: [], options: { tenant: { type: "string" }, now: { type: "string" } }, run: retentionRun },
 };
 
 // ---- tenants -----------------------------------------------------------------------------
@@ -151,7 +159,13 @@ async function keyCreate(db: Db, [slug, collectorName]: string[], values: Values
     .select({ id: collectors.id })
     .from(collectors)
     .where(and(eq(collectors.tenantId, tenant.id), eq(collectors.name, collectorName)));
-  const collector = await ensureCollector(db, tenant.id, collectorName);
+  let collector;
+  try {
+    collector = await ensureCollector(db, tenant.id, collectorName);
+  } catch (error) {
+    if (error instanceof MergedCollectorError) throw new UsageError(error.message);
+    throw error;
+  }
   const created = await createApiKey(db, { tenantId: tenant.id, collectorId: collector.id, scopes: scopesFor(scope.data), createdBy: "admin cli" });
   // The description goes to stderr so stdout holds the key alone: `$(… | tail -1)` and
   // plain `$(…)` both capture just the key.
@@ -226,6 +240,41 @@ async function userGrant(db: Db, [email, slug, role]: string[]): Promise<void> {
   await setMembership(db, user.id, tenant.id, parsedRole.data);
   await recordAudit(db, { tenantId: tenant.id, actor: { id: null, label: "admin CLI" }, action: "member.grant", target: address.data, detail: { role: parsedRole.data } });
   console.log(`${address.data} is now ${parsedRole.data} in ${tenant.slug}${user.githubId === null ? " (they have not signed in yet)" : ""}.`);
+}
+
+// ---- retention ---------------------------------------------------------------------------
+
+const isoTimeSchema = z.iso.datetime({ offset: true });
+
+async function retentionRun(db: Db, _args: string[], values: Values): Promise<void> {
+  let now = Date.now();
+  if (values.now !== undefined) {
+    const parsed = isoTimeSchema.safeParse(values.now);
+    if (!parsed.success) throw new UsageError(`--now must be an ISO 8601 time with a timezone, e.g. 2026-05-01T00:00:00Z, got '${String(values.now)}'`);
+    now = Date.parse(parsed.data);
+  }
+  const slug = typeof values.tenant === "string" ? values.tenant : undefined;
+  if (slug !== undefined) await requireTenant(db, slug);
+  // No manager here: a server ingesting into the same database notices rewritten reservoirs and reloads them.
+  const node = loadEnv().NODE_ID;
+  const reports = await runRetention({ db, node }, now, { tenant: slug });
+  console.log(`Retention as of ${formatTime(now)} (hourly windows written as node ${node}):`);
+  if (reports.length === 0) console.log("No tenants yet.");
+  for (const report of reports) printRetention(report);
+  const failed = reports.filter((r) => r.error !== undefined);
+  if (failed.length > 0) throw new Error(`retention failed for ${failed.map((r) => r.tenant).join(", ")}`);
+}
+
+function printRetention(r: TenantRetentionReport): void {
+  const { rolledUp, deleted } = r;
+  const plural = (n: number, noun: string) => `${n} ${noun}${n === 1 ? "" : "s"}`;
+  console.log(`${r.tenant}  fine windows kept ${r.fineDays} d, hourly windows until ${r.hourlyDays} d old`);
+  console.log(
+    `  rolled up: ${plural(rolledUp.hours, "hour")}, ${plural(rolledUp.fineWindows, "fine window")} → ${plural(rolledUp.hourlyWindows, "hourly window")}, ` +
+      `${plural(rolledUp.kept, "kept record")} (hours ended by ${formatTime(Date.parse(r.rollUpBefore))})`,
+  );
+  console.log(`  deleted:   ${plural(deleted.windows, "window")}, ${plural(deleted.kept, "kept record")} (ended by ${formatTime(Date.parse(r.deleteBefore))})`);
+  if (r.error !== undefined) console.log(`  failed:    ${r.error}`);
 }
 
 // ---- output ------------------------------------------------------------------------------

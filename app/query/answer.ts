@@ -26,6 +26,20 @@ export interface GroupJson extends IntervalJson {
 /** Exact counters: numbers up to 2^53−1, decimal strings above, where JSON numbers stop being exact. */
 export type Counter = number | string;
 
+/**
+ * The windows of one length that answered: older parts of a range may come from hourly
+ * windows rolled up from fine ones (same unbiased estimates, coarser time resolution).
+ */
+export interface ResolutionJson {
+  windowSeconds: number;
+  /** Distinct window starts of this length with data in range. */
+  windows: number;
+  /** Start of the first of these windows (ISO 8601). */
+  from: string;
+  /** End of the last of them (ISO 8601). */
+  to: string;
+}
+
 export interface EstimateAnswer extends IntervalJson {
   metric: Metric;
   /** Distinct window starts with data in range. */
@@ -37,6 +51,8 @@ export interface EstimateAnswer extends IntervalJson {
   groups: GroupJson[];
   from: string;
   to: string;
+  /** The window lengths used, one entry per length, in time order of their first window. */
+  resolution: ResolutionJson[];
 }
 
 /**
@@ -59,11 +75,43 @@ export function counterJson(value: bigint): Counter {
   return value <= BigInt(Number.MAX_SAFE_INTEGER) ? Number(value) : value.toString();
 }
 
+/** One reservoir's window, as the answer's `resolution` summarises them. */
+export interface WindowSpan {
+  windowStart: number;
+  windowSeconds: number;
+}
+
+/**
+ * The window lengths behind an answer, in time order of their first window.
+ *
+ * @example resolutionJson([{ windowStart: 0, windowSeconds: 3600 }, { windowStart: 3_600_000, windowSeconds: 300 }, { windowStart: 3_900_000, windowSeconds: 300 }])
+ *   // [{ windowSeconds: 3600, windows: 1, from: "1970-01-01T00:00:00.000Z", to: "1970-01-01T01:00:00.000Z" },
+ *   //  { windowSeconds: 300, windows: 2, from: "1970-01-01T01:00:00.000Z", to: "1970-01-01T01:10:00.000Z" }]
+ */
+export function resolutionJson(spans: readonly WindowSpan[]): ResolutionJson[] {
+  const byLength = new Map<number, { starts: Set<number>; from: number; to: number }>();
+  for (const { windowStart, windowSeconds } of spans) {
+    const end = windowStart + windowSeconds * 1000;
+    const seen = byLength.get(windowSeconds);
+    if (!seen) byLength.set(windowSeconds, { starts: new Set([windowStart]), from: windowStart, to: end });
+    else {
+      seen.starts.add(windowStart);
+      seen.from = Math.min(seen.from, windowStart);
+      seen.to = Math.max(seen.to, end);
+    }
+  }
+  return [...byLength]
+    .sort(([lengthA, a], [lengthB, b]) => a.from - b.from || lengthB - lengthA)
+    .map(([windowSeconds, s]) => ({ windowSeconds, windows: s.starts.size, from: new Date(s.from).toISOString(), to: new Date(s.to).toISOString() }));
+}
+
 export interface AnswerParts {
   metric: Metric;
   result: ScanResult;
   windows: number;
   collectors: string[];
+  /** Every reservoir's window, for `resolution`; none when absent. */
+  spans?: readonly WindowSpan[];
   exact: { records: bigint; bytes: bigint; packets: bigint };
   from: number;
   to: number;
@@ -81,5 +129,6 @@ export function buildAnswer(parts: AnswerParts): EstimateAnswer {
     groups: result.groups.map((g) => ({ key: g.key, ...intervalJson(g.sum) })),
     from: new Date(parts.from).toISOString(),
     to: new Date(parts.to).toISOString(),
+    resolution: resolutionJson(parts.spans ?? []),
   };
 }

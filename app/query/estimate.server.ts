@@ -2,7 +2,7 @@ import type { InStatement, InValue, Row } from "@libsql/client";
 import { ApiError } from "~/auth/api-keys.server";
 import type { Db } from "~/db/client.server";
 import type { ReservoirManager } from "~/ingest/manager.server";
-import { buildAnswer, type EstimateAnswer } from "./answer";
+import { buildAnswer, type EstimateAnswer, type WindowSpan } from "./answer";
 import type { KeptColumns } from "./columns";
 import { keptRowsToColumns } from "~/ingest/kept-codec";
 import type { EstimateQuery } from "./request";
@@ -43,6 +43,7 @@ interface ReservoirRow {
   id: number;
   collector: string;
   windowStart: number;
+  windowSeconds: number;
   k: number;
   tau: number;
   records: number;
@@ -54,7 +55,9 @@ interface ReservoirRow {
 /**
  * Answers an estimate query for one tenant: the reservoirs of every node whose window starts
  * in [from, to), of the named collectors (all when none are named), each an independent
- * priority sample (Duffield, Lund, Thorup, J. ACM 54(6), 2007), scanned together.
+ * priority sample (Duffield, Lund, Thorup, J. ACM 54(6), 2007), scanned together. Windows of
+ * any length count, so a range reaching back past the roll-up is answered from hourly
+ * windows there; the answer's `resolution` says which lengths covered which span.
  * Authentication is the caller's business; `tenant` is trusted here and confines every
  * SQL statement.
  */
@@ -78,9 +81,11 @@ export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, 
 
   const windows = new Set<number>();
   const collectors = new Set<string>();
+  const spans: WindowSpan[] = [];
   const exact = { records: 0n, bytes: 0n, packets: 0n };
   for (const r of rows) {
     windows.add(r.windowStart);
+    spans.push({ windowStart: r.windowStart, windowSeconds: r.windowSeconds });
     collectors.add(r.collector);
     exact.records += BigInt(r.records);
     exact.bytes += r.bytes;
@@ -91,6 +96,7 @@ export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, 
     result,
     windows: windows.size,
     collectors: [...collectors].sort(),
+    spans,
     exact,
     from: query.from,
     to: query.to,
@@ -137,7 +143,7 @@ async function reservoirsInRange(db: Db, tenantId: number, query: EstimateQuery)
   }
   const found = await db.$client.execute({
     sql:
-      "SELECT r.id, c.name, r.window_start, r.k, r.tau, r.records, r.bytes, r.packets, r.next_seq " +
+      "SELECT r.id, c.name, r.window_start, r.k, r.tau, r.records, r.bytes, r.packets, r.next_seq, r.window_seconds " +
       "FROM reservoirs r JOIN collectors c ON c.id = r.collector_id AND c.tenant_id = r.tenant_id " +
       // An empty row is left behind when a batch fails after creating its reservoir.
       `WHERE r.tenant_id = ? AND r.window_start >= ? AND r.window_start < ? AND r.records > 0${byName} ` +
@@ -155,6 +161,7 @@ async function reservoirsInRange(db: Db, tenantId: number, query: EstimateQuery)
     bytes: BigInt(String(row[6])),
     packets: BigInt(String(row[7])),
     nextSeq: Number(row[8]),
+    windowSeconds: Number(row[9]),
   }));
 }
 

@@ -19,6 +19,9 @@ export async function loader({ request, context, params }: Route.LoaderArgs) {
       windowSeconds: tenant.windowSeconds,
       weightAttribute: tenant.weightAttribute,
       retentionDays: tenant.retentionDays,
+      hourlyRetentionDays: tenant.hourlyRetentionDays,
+      // Only whether it is on: the coordination secret never leaves the server.
+      coordinated: tenant.coordinated,
     },
     shapes: await reservoirShapes(context.db, tenant.id),
   };
@@ -29,6 +32,7 @@ export async function action({ request, context, params }: Route.ActionArgs) {
   const form = Object.fromEntries(await request.formData());
   const parsed = parseSettingsForm(form);
   if (!parsed.ok) {
+    // As posted, so the form shows what was typed (an unticked checkbox posts nothing: "").
     const values = Object.fromEntries(Object.keys(SETTING_LABELS).map((f) => [f, typeof form[f] === "string" ? form[f] : ""])) as Record<SettingField, string>;
     return data({ ok: false as const, fieldErrors: parsed.fieldErrors, values }, { status: 400 });
   }
@@ -47,12 +51,14 @@ export default function Settings({ loaderData, actionData }: Route.ComponentProp
     windowSeconds: String(settings.windowSeconds),
     weightAttribute: settings.weightAttribute,
     retentionDays: String(settings.retentionDays),
+    hourlyRetentionDays: String(settings.hourlyRetentionDays),
+    coordinated: settings.coordinated ? "on" : "",
   };
   const error = (f: SettingField) => (errors[f] ? `${SETTING_LABELS[f]} ${errors[f]}.` : undefined);
 
   return (
     <>
-      <PageHeader title="Settings" lead={<>How Weir samples the flow records of {tenant.name}, and the tenant's retention setting.</>} />
+      <PageHeader title="Settings" lead={<>How Weir samples the flow records of {tenant.name}, and how long it keeps the samples.</>} />
 
       {actionData?.ok ? <SavedNotice changes={actionData.changes} /> : null}
       {failed ? (
@@ -68,7 +74,7 @@ export default function Settings({ loaderData, actionData }: Route.ComponentProp
         <Panel title="Sampling and retention">
           <p className="mb-6 rounded-md border-l-4 border-sand-400 bg-river-950 px-4 py-3 text-sm text-river-100">
             A change applies to windows created from now on. Windows that already exist keep their own sample size k and length, and estimates over old and new
-            windows together stay unbiased: each reservoir is answered with its own k and τ.
+            windows together stay unbiased: each reservoir is answered with its own k and τ. Retention days apply to every stored window at the next roll-up run.
           </p>
           {/* Remounted whenever the stored or the rejected values change, so the fields show them. */}
           <Form key={JSON.stringify(shown)} method="post" noValidate className="flex flex-col gap-7">
@@ -152,34 +158,52 @@ export default function Settings({ loaderData, actionData }: Route.ComponentProp
             <Setting
               explain={
                 <>
-                  The tenant's retention setting, in days (1–3650). A longer retention lets questions reach further back, at the cost of more storage and more
-                  personal data held.
+                  Fine windows (shorter than an hour) become hourly ones after N days (the first field): the same unbiased estimates, at a coarser time
+                  resolution and with wider intervals for small subsets. Every window is deleted M days (the second field, at least N) after it ended. With M = N
+                  fine windows are deleted at N days, without a roll-up. Both 1–3650 days.
                 </>
               }
               aside={
                 <p className="self-start rounded-md border-l-4 border-sand-400 bg-river-950 px-4 py-3 text-sm text-river-200">
-                  Flow records carry IP addresses and can be personal data. Keep them only as long as needed, and follow your data-protection policy and local
-                  law.
+                  Flow records carry IP addresses and can be personal data. Keep them only as long as needed: set these days to follow your data-protection policy
+                  and local law.
                 </p>
               }
             >
-              <Field label={SETTING_LABELS.retentionDays} htmlFor="retentionDays" error={error("retentionDays")}>
-                <span className="flex items-center gap-2">
+              <div className="flex flex-wrap gap-6">
+                <DaysField field="retentionDays" shown={shown.retentionDays} error={error("retentionDays")} />
+                <DaysField field="hourlyRetentionDays" shown={shown.hourlyRetentionDays} error={error("hourlyRetentionDays")} />
+              </div>
+            </Setting>
+
+            <Setting
+              explain={
+                <>
+                  The same flow exported by two collectors gets the same priority (its random draw comes from a keyed hash of its addresses, ports, protocol and
+                  start time), so a merge of those collectors counts it once. It applies to records received from then on; windows sampled before are merged as
+                  independent samples. The tenant's key is made when first turned on and never changes.
+                </>
+              }
+            >
+              <div className="flex flex-col gap-1">
+                <label className="flex items-center gap-2 text-sm font-medium text-river-100">
                   <input
-                    id="retentionDays"
-                    name="retentionDays"
-                    type="number"
-                    inputMode="numeric"
-                    min={1}
-                    max={3650}
-                    step={1}
-                    defaultValue={shown.retentionDays}
-                    aria-invalid={errors.retentionDays ? true : undefined}
-                    className={`${inputClass} w-40 font-mono`}
+                    id="coordinated"
+                    name="coordinated"
+                    type="checkbox"
+                    defaultChecked={shown.coordinated === "on"}
+                    aria-invalid={errors.coordinated ? true : undefined}
+                    aria-describedby={errors.coordinated ? "coordinated-error" : undefined}
+                    className="accent-sand-300"
                   />
-                  <span className="text-sm text-river-300">days</span>
-                </span>
-              </Field>
+                  {SETTING_LABELS.coordinated}
+                </label>
+                {errors.coordinated ? (
+                  <p id="coordinated-error" role="alert" className="text-sm text-red-300">
+                    {error("coordinated")}
+                  </p>
+                ) : null}
+              </div>
             </Setting>
 
             <div>
@@ -198,6 +222,29 @@ export default function Settings({ loaderData, actionData }: Route.ComponentProp
   );
 }
 
+/** A number of days, 1–3650. */
+function DaysField({ field, shown, error }: { field: "retentionDays" | "hourlyRetentionDays"; shown: string; error: string | undefined }) {
+  return (
+    <Field label={SETTING_LABELS[field]} htmlFor={field} error={error}>
+      <span className="flex items-center gap-2">
+        <input
+          id={field}
+          name={field}
+          type="number"
+          inputMode="numeric"
+          min={1}
+          max={3650}
+          step={1}
+          defaultValue={shown}
+          aria-invalid={error ? true : undefined}
+          className={`${inputClass} w-40 font-mono`}
+        />
+        <span className="text-sm text-river-300">days</span>
+      </span>
+    </Field>
+  );
+}
+
 /** One setting: its field, the sentence on what it does and costs, and an optional note beside it. */
 function Setting({ children, explain, aside }: { children: ReactNode; explain: ReactNode; aside?: ReactNode }) {
   return (
@@ -211,7 +258,7 @@ function Setting({ children, explain, aside }: { children: ReactNode; explain: R
   );
 }
 
-function SavedNotice({ changes }: { changes: { field: SettingField; old: number | string; new: number | string }[] }) {
+function SavedNotice({ changes }: { changes: { field: SettingField; old: number | string | boolean; new: number | string | boolean }[] }) {
   return (
     <div role="status" className="mb-6 rounded-md border-l-4 border-sand-300 bg-river-900 px-4 py-3 text-sm text-river-100">
       {changes.length === 0 ? (
@@ -219,9 +266,14 @@ function SavedNotice({ changes }: { changes: { field: SettingField; old: number 
       ) : (
         <>
           <p className="font-medium text-sand-200">
-            {changes.some((c) => c.field === "sampleSize" || c.field === "windowSeconds")
-              ? "Saved. Windows created from now on use the new k and length."
-              : "Saved."}
+            {[
+              "Saved.",
+              changes.some((c) => c.field === "sampleSize" || c.field === "windowSeconds") ? "Windows created from now on use the new k and length." : "",
+              changes.some((c) => c.field === "retentionDays" || c.field === "hourlyRetentionDays") ? "The next roll-up run applies the new retention." : "",
+              changes.some((c) => c.field === "coordinated") ? "Records received from now on are sampled with the new priorities." : "",
+            ]
+              .filter(Boolean)
+              .join(" ")}
           </p>
           <ul className="mt-1 list-inside list-disc text-river-200">
             {changes.map((c) => (

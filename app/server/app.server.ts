@@ -16,6 +16,7 @@ import { ParsePool } from "../ingest/parse-pool.server";
 import type { GitHubConfig } from "../auth/github.server";
 import { createMail, type Mail } from "../mail.server";
 import type { UniformSource } from "../sampling/uniform";
+import { startRetentionTimer, type RetentionTimerOptions } from "../retention/timer.server";
 
 declare module "react-router" {
   // What every loader and action receives as `context`. Server-wide resources travel this
@@ -46,6 +47,8 @@ export interface StartServerOptions {
   logger?: Logger;
   /** Where priorities draw their uniforms; tests inject a seeded source. */
   uniform?: UniformSource;
+  /** Overrides of the roll-up/retention timer (interval from `env.RETENTION_INTERVAL_MINUTES`, first run after a minute); tests shorten them. */
+  retention?: Partial<RetentionTimerOptions>;
 }
 
 export interface WeirServer {
@@ -131,10 +134,15 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
     const host = options.host ?? env.HOST;
     const url = `http://${host.includes(":") ? `[${host}]` : host}:${port}`;
 
+    const retention = startRetentionTimer(
+      { db, manager, node: env.NODE_ID, logger },
+      { ...options.retention, intervalMs: options.retention?.intervalMs ?? env.RETENTION_INTERVAL_MINUTES * 60_000 },
+    );
     let closing: Promise<void> | undefined;
     const close = () => {
       // The pool closes after shutDown has drained the HTTP server, so no request loses its parser.
-      closing ??= shutDown(httpServer, vite, db, logger, manager).then(() => pool.close()).then(() => closeAll(fakes));
+      // A retention run stops after its current transaction, before the database closes.
+      closing ??= retention.stop().then(() => shutDown(httpServer, vite, db, logger, manager)).then(() => pool.close()).then(() => closeAll(fakes));
       return closing;
     };
     return { url, port, httpServer, app, db, env, logger, manager, parsePool: pool, github, mail, close };

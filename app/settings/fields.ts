@@ -5,7 +5,9 @@ export const SETTING_LABELS = {
   sampleSize: "Sample size k",
   windowSeconds: "Window length",
   weightAttribute: "Weight attribute",
-  retentionDays: "Retention",
+  retentionDays: "Fine windows kept (days)",
+  hourlyRetentionDays: "Hourly windows kept until (days old)",
+  coordinated: "Coordinated priorities",
 } as const;
 export type SettingField = keyof typeof SETTING_LABELS;
 
@@ -13,7 +15,11 @@ export interface TenantSettings {
   sampleSize: number;
   windowSeconds: number;
   weightAttribute: "bytes" | "packets";
+  /** N: fine windows (shorter than an hour) are rolled up into hourly ones after this many days. */
   retentionDays: number;
+  /** M ≥ N: every window is deleted once this many days old. */
+  hourlyRetentionDays: number;
+  coordinated: boolean;
 }
 
 export const WINDOW_CHOICES = WINDOW_SECONDS_CHOICES.map((seconds) => ({ seconds, label: windowLabel(seconds) }));
@@ -25,8 +31,9 @@ export function windowLabel(seconds: number): string {
 }
 
 /** A setting's value as a person reads it in a confirmation or the ledger. */
-export function settingText(field: SettingField, value: number | string): string {
+export function settingText(field: SettingField, value: number | string | boolean): string {
   if (field === "windowSeconds") return windowLabel(Number(value));
-  if (field === "retentionDays") return Number(value) === 1 ? "1 day" : `${value} days`;
+  if (field === "retentionDays" || field === "hourlyRetentionDays") return Number(value) === 1 ? "1 day" : `${value} days`;
+  if (field === "coordinated") return value ? "on" : "off";
   return String(value);
 }

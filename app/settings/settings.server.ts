@@ -1,4 +1,5 @@
-import { asc, count, eq, max, min } from "drizzle-orm";
+import { randomBytes } from "node:crypto";
+import { asc, count, eq, max, min, sql } from "drizzle-orm";
 import { z } from "zod";
 import { recordAudit } from "~/audit.server";
 import type { Db } from "~/db/client.server";
@@ -16,13 +17,31 @@ const wholeNumber = (inner: z.ZodType<number, number>) =>
     .transform(Number)
     .pipe(inner);
 
+const days = newTenantSchema.shape.retentionDays.unwrap();
+
 /** The Settings form, with the same bounds as a tenant created by the CLI (newTenantSchema). */
-const settingsFormSchema = z.object({
-  sampleSize: wholeNumber(sampleSizeSchema),
-  windowSeconds: wholeNumber(windowSecondsSchema),
-  weightAttribute: z.enum(WEIGHT_ATTRIBUTES, { error: "must be bytes or packets" }),
-  retentionDays: wholeNumber(newTenantSchema.shape.retentionDays.unwrap()),
-});
+const settingsFormSchema = z
+  .object({
+    sampleSize: wholeNumber(sampleSizeSchema),
+    windowSeconds: wholeNumber(windowSecondsSchema),
+    weightAttribute: z.enum(WEIGHT_ATTRIBUTES, { error: "must be bytes or packets" }),
+    retentionDays: wholeNumber(days),
+    hourlyRetentionDays: wholeNumber(days),
+    // A checkbox posts "on" when ticked and nothing otherwise.
+    coordinated: z
+      .enum(["on", "true"], { error: "must be ticked or not" })
+      .optional()
+      .transform((v) => v !== undefined),
+  })
+  .superRefine((s, ctx) => {
+    if (s.hourlyRetentionDays < s.retentionDays) {
+      ctx.addIssue({
+        code: "custom",
+        path: ["hourlyRetentionDays"],
+        message: `must be at least ${s.retentionDays}, the days fine windows are kept: fine windows become hourly ones, which cannot go before them`,
+      });
+    }
+  });
 
 export type SettingsParse = { ok: true; settings: TenantSettings } | { ok: false; fieldErrors: Partial<Record<SettingField, string>> };
 
@@ -44,8 +63,8 @@ export function parseSettingsForm(form: Record<string, unknown>): SettingsParse 
 
 export interface SettingChange {
   field: SettingField;
-  old: number | string;
-  new: number | string;
+  old: number | string | boolean;
+  new: number | string | boolean;
 }
 
 /**
@@ -53,6 +72,11 @@ export interface SettingChange {
  * old and new values of the changed fields only). Nothing changed → nothing written.
  * Ingest reads the tenant row on every batch, so the next window opened uses the new
  * k and length; a reservoir keeps the k and length it was created with.
+ *
+ * Turning coordinated priorities on makes the tenant's coordination secret (16 random bytes,
+ * the SipHash key of app/sampling/coordinated.ts) when it has none, and never changes an
+ * existing one: priorities drawn before and after stay comparable, so a later merge still
+ * recognises the same flow.
  */
 export async function updateTenantSettings(
   db: Db,
@@ -63,7 +87,11 @@ export async function updateTenantSettings(
   const fields = Object.keys(SETTING_LABELS) as SettingField[];
   const changes = fields.filter((f) => tenant[f] !== next[f]).map((f) => ({ field: f, old: tenant[f], new: next[f] }));
   if (changes.length === 0) return changes;
-  await db.update(tenants).set(next).where(eq(tenants.id, tenant.id));
+  const coordinationSecret = next.coordinated ? sql`coalesce(${tenants.coordinationSecret}, ${randomBytes(16).toString("hex")})` : undefined;
+  await db
+    .update(tenants)
+    .set({ ...next, coordinationSecret })
+    .where(eq(tenants.id, tenant.id));
   await recordAudit(db, {
     tenantId: tenant.id,
     actor,

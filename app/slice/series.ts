@@ -30,12 +30,14 @@ const MAX_GRID_POINTS = 20_000;
  * Points in time order. A window of the tenant's grid with no group in the answer had no
  * matching kept record, so its estimate is 0 (the estimator sums kept records only, DLT 2007);
  * when the answer was cut at `MAX_TOP` groups that is no longer known, and such windows are
- * gaps (null) instead.
+ * gaps (null) instead. Where the answer says longer windows answered (`resolution`: hourly
+ * roll-ups of older data), the grid there steps by their length, so an hour is one point
+ * rather than one point followed by eleven zeros.
  *
  * @example buildSeries({ groups: [{ key: "1970-01-01T00:05:00.000Z", estimate: 10, ci95: [8, 12], rough: false, … }], from: "1970-01-01T00:00:00.000Z", to: "1970-01-01T00:10:00.000Z", windows: 1, … }, 300).points
  *   // [{ start: 0, estimate: 0, low: 0, high: 0, rough: false }, { start: 300000, estimate: 10, low: 8, high: 12, rough: false }]
  */
-export function buildSeries(answer: Pick<EstimateAnswer, "groups" | "from" | "to" | "windows">, windowSeconds: number): Series {
+export function buildSeries(answer: Pick<EstimateAnswer, "groups" | "from" | "to" | "windows"> & Partial<Pick<EstimateAnswer, "resolution">>, windowSeconds: number): Series {
   const truncated = answer.groups.length >= MAX_TOP && answer.windows > answer.groups.length;
   const byStart = new Map<number, SeriesPoint>();
   for (const g of answer.groups) {
@@ -46,9 +48,13 @@ export function buildSeries(answer: Pick<EstimateAnswer, "groups" | "from" | "to
   const to = Date.parse(answer.to);
   const step = windowSeconds * 1000;
   const first = Math.ceil(from / step) * step;
+  const coarser = (answer.resolution ?? [])
+    .filter((r) => r.windowSeconds > windowSeconds)
+    .map((r) => ({ from: Date.parse(r.from), to: Date.parse(r.to), step: r.windowSeconds * 1000 }));
+  const offGrid = (start: number) => coarser.some((c) => start >= c.from && start < c.to && start % c.step !== 0);
   if (Number.isFinite(first) && step > 0 && (to - first) / step <= MAX_GRID_POINTS) {
     for (let start = first; start < to; start += step) {
-      if (!byStart.has(start)) {
+      if (!byStart.has(start) && !offGrid(start)) {
         byStart.set(start, truncated ? { start, estimate: null, low: null, high: null, rough: false } : { start, estimate: 0, low: 0, high: 0, rough: false });
       }
     }

@@ -1,7 +1,9 @@
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { ensureUserByEmail, setMembership } from "~/auth/users.server";
+import { readStoredWindows } from "~/samples/store.server";
+import { coordinatedUniform, flowKeyBytes } from "~/sampling/coordinated";
 import { createTenant } from "~/tenants.server";
-import { postFlows, startTestServer, tenantWithKey, type TestServer } from "../helpers/server";
+import { keyFor, postFlows, startTestServer, tenantWithKey, type TestServer } from "../helpers/server";
 import { signIn, type SignedIn } from "../helpers/session";
 
 // The Settings page of the console (/t/:tenant/settings) against a real server: an admin's
@@ -23,11 +25,13 @@ const flowsAt = (start: number, n: number) =>
     start,
   }));
 
-const form = (values: Partial<Record<"sampleSize" | "windowSeconds" | "weightAttribute" | "retentionDays", string>>) => ({
+// A ticked checkbox posts "on"; an unticked one posts nothing (HTML Living Standard, form submission).
+const form = (values: Partial<Record<"sampleSize" | "windowSeconds" | "weightAttribute" | "retentionDays" | "hourlyRetentionDays" | "coordinated", string>>) => ({
   sampleSize: "64",
   windowSeconds: "300",
   weightAttribute: "bytes",
   retentionDays: "30",
+  hourlyRetentionDays: "365",
   ...values,
 });
 
@@ -129,9 +133,12 @@ describe("console Settings", () => {
       [form({ sampleSize: "" }), "Sample size k is required."],
       [form({ windowSeconds: "120" }), "Window length must be one of 60, 300, 900, 3600 seconds."],
       [form({ weightAttribute: "flows" }), "Weight attribute must be bytes or packets."],
-      [form({ retentionDays: "0" }), "Retention must be at least 1."],
-      [form({ retentionDays: "4000" }), "Retention must be at most 3650."],
-      [{ sampleSize: "64", windowSeconds: "300", weightAttribute: "bytes" }, "Retention is required."],
+      [form({ retentionDays: "0" }), "Fine windows kept (days) must be at least 1."],
+      [form({ retentionDays: "4000", hourlyRetentionDays: "4000" }), "Fine windows kept (days) must be at most 3650."],
+      [{ sampleSize: "64", windowSeconds: "300", weightAttribute: "bytes", hourlyRetentionDays: "365" }, "Fine windows kept (days) is required."],
+      [form({ hourlyRetentionDays: "3651" }), "Hourly windows kept until (days old) must be at most 3650."],
+      [form({ hourlyRetentionDays: "" }), "Hourly windows kept until (days old) is required."],
+      [form({ coordinated: "yes" }), "Coordinated priorities must be ticked or not."],
     ];
     for (const [fields, message] of cases) {
       const res = await ada.post(path, fields);
@@ -148,7 +155,7 @@ describe("console Settings", () => {
     const { tenant: row, path } = await tenant();
     const saved = await ada.post(path, form({ weightAttribute: "packets", retentionDays: "7" }));
     expect(saved.status).toBe(200);
-    expect(await saved.text()).toContain("Retention: 30 days → 7 days");
+    expect(await saved.text()).toContain("Fine windows kept (days): 30 days → 7 days");
     expect(await settingsOf(row.id)).toMatchObject({ weight_attribute: "packets", retention_days: 7 });
 
     const unchanged = await ada.post(path, form({ weightAttribute: "packets", retentionDays: "7" }));
@@ -175,5 +182,93 @@ describe("console Settings", () => {
     expect((await oskar.fetch(path)).status).toBe(404);
     expect((await oskar.post(path, form({ sampleSize: "16" }))).status).toBe(404);
     expect((await settingsOf(row.id)).sample_size).toBe(64);
+  });
+
+  describe("retention with a roll-up, and coordinated priorities", () => {
+    const checkbox = (html: string) => /<input id="coordinated"[^>]*>/.exec(html)?.[0] ?? "";
+    const retentionOf = async (tenantId: number) =>
+      (await sql("SELECT retention_days, hourly_retention_days, coordinated, coordination_secret FROM tenants WHERE id = ?", [tenantId]))[0];
+
+    it("shows both retention fields, what the roll-up does, the privacy caution and the coordination checkbox", async () => {
+      const { path } = await tenant();
+      const html = await (await ada.fetch(path)).text();
+      expect(html).toMatch(/id="retentionDays"[^>]*value="30"/);
+      expect(html).toMatch(/id="hourlyRetentionDays"[^>]*value="365"/);
+      expect(html).toContain("Fine windows kept (days)");
+      expect(html).toContain("Hourly windows kept until (days old)");
+      expect(html).toContain("Fine windows (shorter than an hour) become hourly ones after N days (the first field): the same unbiased estimates");
+      expect(html).toContain("with wider intervals for small subsets");
+      expect(html).toContain("Every window is deleted M days (the second field, at least N) after it ended");
+      expect(html).toContain("can be personal data");
+      expect(checkbox(html)).toMatch(/type="checkbox"/);
+      expect(checkbox(html)).not.toContain("checked");
+      expect(html).toContain("so a merge of those collectors counts it once");
+      expect(html).toContain("windows sampled before are merged as independent samples");
+    });
+
+    it("refuses hourly days below the fine-window days with a clear message, and accepts them equal", async () => {
+      const { tenant: row, path } = await tenant();
+      for (const fields of [form({ retentionDays: "30", hourlyRetentionDays: "29" }), form({ retentionDays: "400" })]) {
+        const res = await ada.post(path, fields);
+        expect(res.status).toBe(400);
+        const html = await res.text();
+        expect(html).toMatch(/Hourly windows kept until \(days old\) must be at least (30|400), the days fine windows are kept/);
+        expect(html).toContain("Not saved");
+      }
+      expect(await retentionOf(row.id)).toMatchObject({ retention_days: 30, hourly_retention_days: 365 });
+
+      // M = N: fine windows are deleted at N days, without a roll-up.
+      const saved = await ada.post(path, form({ retentionDays: "90", hourlyRetentionDays: "90" }));
+      expect(saved.status).toBe(200);
+      const html = await saved.text();
+      expect(html).toContain("Fine windows kept (days): 30 days → 90 days");
+      expect(html).toContain("Hourly windows kept until (days old): 365 days → 90 days");
+      expect(await retentionOf(row.id)).toMatchObject({ retention_days: 90, hourly_retention_days: 90 });
+      const ledger = await sql("SELECT detail FROM audit_log WHERE tenant_id = ? AND action = 'settings.update'", [row.id]);
+      expect(ledger.map((r) => JSON.parse(String(r.detail)))).toEqual([
+        { old: { retentionDays: 30, hourlyRetentionDays: 365 }, new: { retentionDays: 90, hourlyRetentionDays: 90 } },
+      ]);
+    });
+
+    it("makes a coordination secret when coordination is first turned on, never changes it, and never shows it", async () => {
+      const { tenant: row, key, path } = await tenant();
+      expect(await retentionOf(row.id)).toMatchObject({ coordinated: 0, coordination_secret: null });
+
+      const on = await ada.post(path, form({ coordinated: "on" }));
+      expect(on.status).toBe(200);
+      expect(await on.text()).toContain("Coordinated priorities: off → on");
+      const first = await retentionOf(row.id);
+      expect(first.coordinated).toBe(1);
+      // 16 random bytes as hex (the SipHash-2-4 key size: Aumasson, Bernstein, "SipHash: a fast short-input PRF", 2012).
+      const secret = String(first.coordination_secret);
+      expect(secret).toMatch(/^[0-9a-f]{32}$/);
+      const page = await (await ada.fetch(path)).text();
+      expect(checkbox(page)).toContain('checked=""');
+      expect(page).not.toContain(secret);
+
+      expect((await ada.post(path, form({}))).status).toBe(200);
+      expect(await retentionOf(row.id)).toMatchObject({ coordinated: 0, coordination_secret: secret });
+      expect((await ada.post(path, form({ coordinated: "on" }))).status).toBe(200);
+      expect(await retentionOf(row.id)).toMatchObject({ coordinated: 1, coordination_secret: secret });
+
+      const ledger = await sql("SELECT detail FROM audit_log WHERE tenant_id = ? AND action = 'settings.update' ORDER BY id", [row.id]);
+      expect(ledger.map((r) => JSON.parse(String(r.detail)))).toEqual([
+        { old: { coordinated: false }, new: { coordinated: true } },
+        { old: { coordinated: true }, new: { coordinated: false } },
+        { old: { coordinated: false }, new: { coordinated: true } },
+      ]);
+      for (const r of ledger) expect(String(r.detail)).not.toContain(secret);
+
+      // From now on the same flow sent by two collectors gets the same priority w/u, with u
+      // from the keyed hash of its flow key (DESIGN: coordinated priorities).
+      const other = await keyFor(t.server, row.id, "edge-2");
+      const flow = { src: "192.0.2.10", dst: "198.51.100.20", proto: 17, sport: 5353, dport: 53, bytes: 900, packets: 3, start: T0 };
+      for (const k of [key, other.key]) expect((await post(k, [flow])).status).toBe(200);
+      const kept = (await readStoredWindows(t.server.db.$client, row.id, { from: T0 - HOUR_MS, to: T0 + HOUR_MS })).map((w) => w.kept[0]);
+      expect(kept).toHaveLength(2);
+      expect(kept[0].priority).toBe(kept[1].priority);
+      const u = coordinatedUniform(Uint8Array.from(Buffer.from(secret, "hex")), flowKeyBytes(kept[0].item));
+      expect(kept[0].priority).toBe(900 / u);
+    });
   });
 });

@@ -18,7 +18,10 @@ export interface TestServer {
 export async function startTestServer(options: { env?: Record<string, string>; uniform?: UniformSource } = {}): Promise<TestServer> {
   const dir = mkdtempSync(join(tmpdir(), "weir-test-"));
   const server = await startServer({
-    env: parseEnv({ NODE_ENV: "development", HOST: "127.0.0.1", PORT: "0", DATABASE_URL: `file:${join(dir, "weir.db")}`, LOG_LEVEL: "silent", ...options.env }),
+    env: parseEnv({ NODE_ENV: "development", HOST: "127.0.0.1", PORT: "0", DATABASE_URL: `file:${join(dir, "weir.db")}`, LOG_LEVEL: "silent",
+      // Off: a roll-up against the clock would delete the past-dated data tests post. Retention tests run it explicitly.
+      RETENTION_INTERVAL_MINUTES: "0",
+      ...options.env }),
     uniform: options.uniform,
   });
   return {

@@ -75,6 +75,7 @@ describe("server (development mode, Vite middleware)", () => {
       "invites",
       "kept_records",
       "memberships",
+      "merges",
       "reservoirs",
       "tenants",
       "users",

@@ -91,6 +91,7 @@ describe("the Slice export", () => {
     ],
     from: "2024-05-01T02:00:00.000Z",
     to: "2024-05-01T03:00:00.000Z",
+    resolution: [{ windowSeconds: 300, windows: 2, from: "2024-05-01T02:00:00.000Z", to: "2024-05-01T02:10:00.000Z" }],
   };
   const text = estimatesCsv(answer, "riverline", "from=2024-05-01T02:00:00Z; to=2024-05-01T03:00:00Z; metric=bytes; groupBy=src");
   const lines = text.split("\r\n");

@@ -39,4 +39,25 @@ describe("the per-window series", () => {
     const s = buildSeries({ groups: [odd], from: new Date(T0).toISOString(), to: new Date(T0 + W).toISOString(), windows: 1 }, 300);
     expect(s.points.map((p) => p.start)).toEqual([T0, T0 + 60_000]);
   });
+
+  test("steps by the hour where hourly roll-ups answered, with 0 for an hour without a match", () => {
+    const H = 3_600_000;
+    const hour = (i: number, estimate: number): GroupJson => ({ ...group(0, estimate), key: new Date(T0 + i * H).toISOString() });
+    const answer = {
+      groups: [hour(0, 600), group(24, 40)],
+      from: new Date(T0).toISOString(),
+      to: new Date(T0 + 2 * H + 2 * W).toISOString(),
+      windows: 2,
+      resolution: [
+        { windowSeconds: 3600, windows: 1, from: new Date(T0).toISOString(), to: new Date(T0 + 2 * H).toISOString() },
+        { windowSeconds: 300, windows: 1, from: new Date(T0 + 2 * H).toISOString(), to: new Date(T0 + 2 * H + W).toISOString() },
+      ],
+    };
+    expect(buildSeries(answer, 300).points.map((p) => [p.start, p.estimate])).toEqual([
+      [T0, 600],
+      [T0 + H, 0],
+      [T0 + 2 * H, 40],
+      [T0 + 2 * H + W, 0],
+    ]);
+  });
 });

@@ -6,11 +6,25 @@ import { csvFileName, estimatesCsv } from "~/slice/csv";
 import { exactMetric, formatPercent, formatUtc, GROUP_LABELS } from "~/slice/format";
 import { describeQuery, type SliceState } from "~/slice/query-state";
 import { exactTotalOf, IntervalValue, MetricValue, ROUGH_EXPLANATION, RoughBadge, Stat } from "./figures";
+import { ResolutionNote } from "./Resolution";
 
 const METRIC_TITLE = { bytes: "Bytes", packets: "Packets", flows: "Flows" } as const;
 
 /** The estimate for the whole subset: the number, its interval and how far to trust it. */
-export function Headline({ answer, tenant, state, updating }: { answer: EstimateAnswer; tenant: string; state: SliceState; updating: boolean }) {
+export function Headline({
+  answer,
+  tenant,
+  state,
+  updating,
+  windowSeconds,
+}: {
+  answer: EstimateAnswer;
+  tenant: string;
+  state: SliceState;
+  updating: boolean;
+  /** The tenant's window length: hourly windows in an answer are roll-ups when it is shorter. */
+  windowSeconds: number;
+}) {
   const total = exactTotalOf(answer);
   const share = total.value > 0 ? answer.estimate / total.value : Number.NaN;
   const relative = answer.estimate > 0 ? answer.stdError / answer.estimate : Number.NaN;
@@ -31,6 +45,7 @@ export function Headline({ answer, tenant, state, updating }: { answer: Estimate
         Windows starting {formatUtc(answer.from)} – {formatUtc(answer.to)} · {answer.windows} window{answer.windows === 1 ? "" : "s"} with data ·{" "}
         {answer.collectors.length === 0 ? "no collectors" : `collectors ${answer.collectors.join(", ")}`}
       </p>
+      <ResolutionNote resolution={answer.resolution} windowSeconds={windowSeconds} />
       <p className="mt-3 flex flex-wrap items-baseline gap-x-3 gap-y-1">
         <MetricValue value={answer.estimate} metric={answer.metric} className="text-4xl font-semibold text-river-50" />
         <span className="font-mono text-lg text-river-200" title={`95% interval half-width: ${exactMetric(plusMinus, answer.metric)}`}>

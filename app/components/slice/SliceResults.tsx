@@ -54,7 +54,7 @@ export function SliceResults({ state, tenant, windowSeconds }: { state: SliceSta
 
   return (
     <div className="flex flex-col gap-6">
-      <Headline answer={answer} tenant={tenant} state={state} updating={main.isValidating} />
+      <Headline answer={answer} tenant={tenant} state={state} updating={main.isValidating} windowSeconds={windowSeconds} />
       <Panel title="Per window">
         {timeline.error ? (
           <ApiErrorState title="The time series could not be computed" error={timeline.error} />
