@@ -12,6 +12,7 @@ import { apiKeys, tenants } from "~/db/schema.server";
 import { loadEnv } from "~/env.server";
 import { ReservoirManager } from "~/ingest/manager.server";
 import type { FlowRecord } from "~/flow/record";
+import { createMerge } from "~/merges/merges.server";
 import { seededUniform } from "~/sampling/uniform";
 import { createTenant, ensureCollector } from "~/tenants.server";
 import { DEMO_KEYS, DEMO_MEMBERS, demoKeyLines } from "./demo-keys";
@@ -20,6 +21,8 @@ import { DEMO_TENANTS, SITES, dayOfFlows } from "./scenario";
 
 /** Seeds the scenario's flows; any fixed number does. */
 export const SCENARIO_SEED = 1;
+/** The demo merge of riverline's two PoPs. */
+export const DEMO_MERGE = "both-pops";
 /** Seeds the priorities u_i, so the kept samples are the same on every run too. */
 const SAMPLING_SEED = 5;
 // Large enough that per-batch overhead vanishes, small enough that one batch's transaction stays short.
@@ -107,6 +110,19 @@ export async function seedDemo(db: Db, options: SeedOptions): Promise<SeedResult
     result.collectors.push({ tenant: site.tenant, collector: site.collector, records });
     log(`  ${`${site.tenant}/${site.collector}`.padEnd(20)} ${records.toLocaleString("en-US").padStart(8)} flow records`);
   }
+
+  // A merge of Riverline's two PoPs over the seeded day (each flow enters at one PoP only,
+  // so their streams are disjoint), for the Merge page and for Slice by its name.
+  const riverline = made.get("riverline")!;
+  const dayStart = Math.ceil((now - 86_400_000) / 3_600_000) * 3_600_000;
+  const dayEnd = Math.floor(now / 3_600_000) * 3_600_000;
+  const merged = await createMerge(
+    { db, manager, node: options.node },
+    { id: riverline.id, sampleSize: riverline.sampleSize, coordinated: false },
+    { name: DEMO_MERGE, collectors: ["pop-north", "pop-south"], from: dayStart, to: dayEnd, sampleSize: riverline.sampleSize, preview: false },
+    { id: null, label: "seed (demo data)" },
+  );
+  log(`Merged riverline/pop-north and pop-south into '${DEMO_MERGE}': ${merged.plan.totals.windows} windows, ${merged.plan.totals.kept.toLocaleString("en-US")} kept records.`);
 
   // Console members: the invented accounts of the local fake GitHub (scripts/fakes/github.ts).
   for (const member of DEMO_MEMBERS) {

@@ -18,7 +18,7 @@ import { parsePrefix, prefixContains } from "~/net/prefix";
 import { createTenant, ensureCollector, findTenantBySlug } from "~/tenants.server";
 import { DEMO_RIVERLINE_KEY, DEMO_TRIBUTARY_KEY } from "../../scripts/demo-keys";
 import { SITES, dayOfFlows, flowsPerDay } from "../../scripts/scenario";
-import { SCENARIO_SEED, SeedError, seedDemo, type SeedResult } from "../../scripts/seed";
+import { DEMO_MERGE, SCENARIO_SEED, SeedError, seedDemo, type SeedResult } from "../../scripts/seed";
 
 const ROOT = fileURLToPath(new URL("../..", import.meta.url));
 
@@ -110,6 +110,25 @@ describe("demo seed", () => {
     // The scale the scenario promises: a few hundred thousand records.
     expect(total).toBeGreaterThan(200_000);
     expect(total).toBeLessThan(1_000_000);
+  });
+
+  it("merges riverline's two PoPs into the demo merge, with its provenance and exactly summed counters", async () => {
+    const merge = await db.$client.execute(
+      "SELECT m.inputs, m.from_ms, m.to_ms, m.created_by, m.windows, c.kind FROM merges m JOIN collectors c ON c.id = m.collector_id WHERE c.name = ?",
+      [DEMO_MERGE],
+    );
+    expect(merge.rows).toHaveLength(1);
+    const { inputs, from_ms: from, to_ms: to, created_by: createdBy, kind } = merge.rows[0];
+    expect(JSON.parse(String(inputs))).toEqual(["pop-north", "pop-south"]);
+    expect(createdBy).toBe("seed (demo data)");
+    expect(kind).toBe("merge");
+    // The merge of disjoint streams sees every record of its inputs (DLT 2007 merge rule: seen counts add).
+    const sums = await db.$client.execute({
+      sql: "SELECT c.name, sum(r.records) FROM reservoirs r JOIN collectors c ON c.id = r.collector_id WHERE c.name IN ('pop-north', 'pop-south', ?) AND r.window_start >= ? AND r.window_start < ? GROUP BY c.name",
+      args: [DEMO_MERGE, Number(from), Number(to)],
+    });
+    const by = new Map(sums.rows.map((row) => [String(row[0]), Number(row[1])]));
+    expect(by.get(DEMO_MERGE)).toBe(by.get("pop-north")! + by.get("pop-south")!);
   });
 
   it("does nothing when run again", async () => {
