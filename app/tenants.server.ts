@@ -1,4 +1,5 @@
 import { and, asc, eq } from "drizzle-orm";
+import { randomBytes } from "node:crypto";
 import { z } from "zod";
 import type { Db } from "./db/client.server";
 import { collectors, tenants, type Tenant } from "./db/schema.server";
@@ -29,13 +30,22 @@ export const newTenantSchema = z.object({
   retentionDays: z.number().int().min(1).max(3650).default(30),
   /** M; at least N (retentionDays). Default: a year, or N when that is longer. */
   hourlyRetentionDays: z.number().int().min(1).max(3650).optional(),
+  /** Coordinated priorities (app/sampling/coordinated.ts); the tenant's secret is made here. */
+  coordinated: z.boolean().default(false),
+}).refine((t) => t.hourlyRetentionDays === undefined || t.hourlyRetentionDays >= t.retentionDays, {
+  path: ["hourlyRetentionDays"],
+  message: "must be at least the fine-window days (retentionDays): hourly windows are made from fine ones",
 });
 
 export async function createTenant(db: Db, input: z.input<typeof newTenantSchema>): Promise<Tenant> {
   const t = newTenantSchema.parse(input);
   const [row] = await db
     .insert(tenants)
-    .values({ slug: t.slug, name: t.name ?? t.slug, sampleSize: t.sampleSize, windowSeconds: t.windowSeconds, weightAttribute: t.weightAttribute, retentionDays: t.retentionDays, hourlyRetentionDays: Math.max(t.hourlyRetentionDays ?? 365, t.retentionDays) })
+    .values({ slug: t.slug, name: t.name ?? t.slug, sampleSize: t.sampleSize, windowSeconds: t.windowSeconds, weightAttribute: t.weightAttribute, retentionDays: t.retentionDays,
+      hourlyRetentionDays: Math.max(t.hourlyRetentionDays ?? 365, t.retentionDays),
+      coordinated: t.coordinated,
+      coordinationSecret: t.coordinated ? randomBytes(16).toString("hex") : null,
+    })
     .returning();
   return row;
 }

@@ -18,7 +18,8 @@ const USAGE = `Usage: npm run admin -- <command> [options]
 
 Commands:
   tenant create <slug> [--name TEXT] [--sample-size N] [--window-seconds S]
-                       [--weight bytes|packets] [--retention-days D]
+                       [--weight bytes|packets] [--retention-days N]
+                       [--hourly-retention-days M] [--coordinated]
   tenant list
   key create <tenant> <collector> [--scope ingest|query|both]
                        Creates the collector when it is new. The key is shown once,
@@ -36,7 +37,8 @@ Commands:
                        --now runs as of another time (ISO 8601 with a timezone).
 
 Defaults: --sample-size 1024, --window-seconds 300 (one of 60, 300, 900, 3600),
---weight bytes, --retention-days 30, --scope ingest.
+--weight bytes, --retention-days 30 (fine windows), --hourly-retention-days 365
+(at least N), coordinated priorities off, --scope ingest.
 The database is DATABASE_URL (default file:./data/weir.db), migrated first.
 Exit status: 0 done, 2 bad command or input, 1 anything else.
 
@@ -63,6 +65,8 @@ const COMMANDS: Record<string, Command> = {
       "window-seconds": { type: "string" },
       weight: { type: "string" },
       "retention-days": { type: "string" },
+      "hourly-retention-days": { type: "string" },
+      coordinated: { type: "boolean" },
     },
     run: tenantCreate,
   },
@@ -84,6 +88,7 @@ const TENANT_FLAGS: Record<string, string> = {
   windowSeconds: "--window-seconds",
   weightAttribute: "--weight",
   retentionDays: "--retention-days",
+  hourlyRetentionDays: "--hourly-retention-days",
 };
 
 function wholeNumber(values: Values, flag: string): number | undefined {
@@ -107,13 +112,16 @@ async function tenantCreate(db: Db, [slug]: string[], values: Values): Promise<v
     windowSeconds: wholeNumber(values, "window-seconds"),
     weightAttribute: values.weight,
     retentionDays: wholeNumber(values, "retention-days"),
+    hourlyRetentionDays: wholeNumber(values, "hourly-retention-days"),
+    coordinated: values.coordinated === true,
   });
   if (!parsed.success) throw new UsageError(firstIssue(parsed.error, TENANT_FLAGS));
   if (await findTenantBySlug(db, slug)) throw new UsageError(`tenant '${slug}' already exists`);
   const t = await createTenant(db, parsed.data);
   console.log(
     `Created tenant ${t.slug} ("${t.name}"): k ${t.sampleSize}, ${formatWindow(t.windowSeconds)} windows, ` +
-      `weight ${t.weightAttribute}, retention ${t.retentionDays} d.`,
+      `weight ${t.weightAttribute}, fine windows ${t.retentionDays} d, hourly until ${t.hourlyRetentionDays} d` +
+      `${t.coordinated ? ", coordinated priorities" : ""}.`,
   );
 }
 

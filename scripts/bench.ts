@@ -42,6 +42,14 @@ console.log(`speed-up               ${fmt(q.exactP50Ms / q.p50Ms, 0)}×   (goal 
 console.log(`on disk                Weir ${mb(q.weirBytes)} against ${mb(q.keepAllBytes)}`);
 console.log(`checked answer         |estimate − exact| = ${fmt(q.zOfCheckedQuery, 2)} standard errors`);
 
+section("Roll-up of that day into hourly windows (retention after N days), and the same questions again");
+const u = q.rollUp;
+console.log(`roll-up                ${q.windows} windows → ${u.hourlyWindows} hourly, ${fmt(q.keptRecords, 0)} → ${fmt(u.keptAfter, 0)} kept records, in ${fmt(u.rollUpSeconds, 2)} s`);
+console.log(`read the day only      ${fmt(u.readSeconds, 2)} s   (decode every reservoir: the floor) → roll-up / read ${fmt(u.rollUpSeconds / u.readSeconds, 2)}×`);
+console.log(`exact bytes            before ${u.exactBytesBefore}, after ${u.exactBytesAfter}   (${u.exactBytesBefore === u.exactBytesAfter ? "equal" : "DIFFERENT"})`);
+console.log(`p50 over 50            ${fmt(u.p50Ms, 1)} ms after the roll-up, against ${fmt(q.p50Ms, 1)} ms before`);
+console.log(`checked answer         |estimate − exact| = ${fmt(u.zOfCheckedQuery, 2)} standard errors after the roll-up`);
+
 section("Accuracy at equal k: priority sampling against uniform reservoir sampling (Algorithm R)");
 const a = benchAccuracy();
 console.log(`set-up                 ${fmt(a.records, 0)} Pareto records, k = ${a.k}, ${a.trials} trials, ${a.subsets} subsets holding 0.5–2% of the bytes`);

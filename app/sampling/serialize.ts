@@ -15,15 +15,17 @@ export interface ReservoirJson<J = unknown> {
   kept: { priority: number; weight: number; record: J }[];
 }
 
-const positiveFinite = z.number().positive().finite();
+const POSITIVE = "must be a number above 0";
+const positiveFinite = z.number({ error: POSITIVE }).positive({ error: POSITIVE }).finite({ error: POSITIVE });
+const WHOLE = "must be a whole number of at least 0";
 
 const reservoirJsonSchema = z
   .object({
     format: z.literal("weir.reservoir"),
     version: z.literal(RESERVOIR_JSON_VERSION, { error: `unsupported version: this Weir reads version ${RESERVOIR_JSON_VERSION}` }),
-    k: z.number().int().positive(),
-    tau: z.number().nonnegative().finite(),
-    seen: z.number().int().nonnegative(),
+    k: z.number({ error: "must be a whole number of at least 1" }).int({ error: "must be a whole number of at least 1" }).positive({ error: "must be a whole number of at least 1" }),
+    tau: z.number({ error: "must be a number of at least 0" }).nonnegative({ error: "must be a number of at least 0" }).finite({ error: "must be a number of at least 0" }),
+    seen: z.number({ error: WHOLE }).int({ error: WHOLE }).nonnegative({ error: WHOLE }),
     kept: z.array(z.object({ priority: positiveFinite, weight: positiveFinite, record: z.unknown() })),
   })
   .superRefine((r, ctx) => {

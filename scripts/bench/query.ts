@@ -1,12 +1,15 @@
 // Query latency over one day of data (288 five-minute windows × k = 1024) against
-// an exact SUM over a keep-everything table of the same records.
+// an exact SUM over a keep-everything table of the same records; then the same day
+// rolled up into hourly windows, and the same questions again.
 import { mkdtempSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
-import { closeDb } from "~/db/client.server";
+import { closeDb, createDb } from "~/db/client.server";
 import type { FlowRecord } from "~/flow/record";
 import { ReservoirManager } from "~/ingest/manager.server";
 import { parsePrefix, prefixRange } from "~/net/prefix";
+import { runRetention } from "~/retention/rollup.server";
+import { readStoredWindows } from "~/samples/store.server";
 import { benchRecords } from "./data";
 import { insertAll, openKeepAll } from "./keep-all";
 import { benchDatabase, databaseBytes, percentile, startChildServer } from "./util";
@@ -24,6 +27,21 @@ export interface QueryBench {
   weirBytes: number;
   keepAllBytes: number;
   /** |estimate − exact| / stdError of the checked query: the answer must be right, not just fast. */
+  zOfCheckedQuery: number;
+  rollUp: RollUpBench;
+}
+
+/** The same day rolled up into hourly windows (runRetention as of 30 days and an hour later). */
+export interface RollUpBench {
+  /** Reading and decoding every reservoir of the day (readStoredWindows): the floor of any roll-up. */
+  readSeconds: number;
+  rollUpSeconds: number;
+  hourlyWindows: number;
+  keptAfter: number;
+  /** The exact byte total of the day, before and after: must be equal. */
+  exactBytesBefore: string;
+  exactBytesAfter: string;
+  p50Ms: number;
   zOfCheckedQuery: number;
 }
 
@@ -58,37 +76,14 @@ export async function benchQuery(total = 10_000_000, queries = 50, exactRuns = 5
     await keepAll.execute("PRAGMA wal_checkpoint(TRUNCATE)");
     closeDb(db);
 
-    const server = await startChildServer(`file:${weirPath}`);
-    const body = (block: string) =>
-      JSON.stringify({ from: dayStart, to: dayStart + 86_400_000, where: { src: [block] }, groupBy: "dst", prefixLength: 24, top: 10 });
-    const ask = async (block: string) => {
-      const res = await fetch(`${server.url}/api/v1/estimate`, {
-        method: "POST",
-        headers: { authorization: `Bearer ${key}`, "content-type": "application/json" },
-        body: body(block),
-      });
-      if (res.status !== 200) throw new Error(`estimate answered ${res.status}: ${await res.text()}`);
-      return (await res.json()) as { estimate: number; stdError: number };
-    };
-    let t0 = performance.now();
-    await ask(BLOCKS[0]);
-    const firstQueryMs = performance.now() - t0;
-    const latencies: number[] = [];
-    for (let i = 0; i < queries; i++) {
-      t0 = performance.now();
-      await ask(BLOCKS[i % BLOCKS.length]);
-      latencies.push(performance.now() - t0);
-    }
-    const checked = await ask(BLOCKS[1]);
-    await server.stop();
-    latencies.sort((a, b) => a - b);
+    const before = await querySession(`file:${weirPath}`, key, dayStart, queries);
 
     // The exact answer to the same question: a full scan of every record.
     const exact: number[] = [];
     let exactTotal = 0;
     for (let i = 0; i < exactRuns; i++) {
       const { low, high } = prefixRange(parsePrefix(BLOCKS[1]));
-      t0 = performance.now();
+      const t0 = performance.now();
       const rows = (
         await keepAll.execute({
           sql: "SELECT substr(dst, 1, 15) AS network, SUM(bytes) AS bytes FROM flows WHERE src BETWEEN ? AND ? AND start_ms >= ? AND start_ms < ? GROUP BY network ORDER BY bytes DESC",
@@ -101,21 +96,82 @@ export async function benchQuery(total = 10_000_000, queries = 50, exactRuns = 5
     keepAll.close();
     exact.sort((a, b) => a - b);
 
+    // Roll the day up into hourly windows, as retention does after N = 30 days, and ask again.
+    const rolled = await createDb(`file:${weirPath}`);
+    let t0 = performance.now();
+    await readStoredWindows(rolled.$client, tenant.id, { from: dayStart, to: dayStart + 86_400_000 });
+    const readSeconds = (performance.now() - t0) / 1000;
+    t0 = performance.now();
+    const [report] = await runRetention({ db: rolled, node: "node-1" }, dayStart + 86_400_000 + 30 * 86_400_000 + 3_600_000, { tenant: tenant.slug });
+    const rollUpSeconds = (performance.now() - t0) / 1000;
+    const keptAfter = Number((await rolled.$client.execute("SELECT COUNT(*) FROM kept_records")).rows[0][0]);
+    await rolled.$client.execute("PRAGMA wal_checkpoint(TRUNCATE)");
+    closeDb(rolled);
+    const after = await querySession(`file:${weirPath}`, key, dayStart, queries);
+
     return {
       records: total,
       windows: Number(stats.windows),
       keptRecords: Number(stats.kept),
       buildSeconds,
-      firstQueryMs,
-      p50Ms: percentile(latencies, 0.5),
-      p95Ms: percentile(latencies, 0.95),
+      firstQueryMs: before.firstQueryMs,
+      p50Ms: percentile(before.latencies, 0.5),
+      p95Ms: percentile(before.latencies, 0.95),
       exactP50Ms: percentile(exact, 0.5),
       exactRuns,
       weirBytes: databaseBytes(weirPath),
       keepAllBytes: databaseBytes(join(dir, "keep-all.db")),
-      zOfCheckedQuery: Math.abs(checked.estimate - exactTotal) / checked.stdError,
+      zOfCheckedQuery: Math.abs(before.checked.estimate - exactTotal) / before.checked.stdError,
+      rollUp: {
+        readSeconds,
+        rollUpSeconds,
+        hourlyWindows: report.rolledUp.hourlyWindows,
+        keptAfter,
+        exactBytesBefore: String(before.checked.exact.bytes),
+        exactBytesAfter: String(after.checked.exact.bytes),
+        p50Ms: percentile(after.latencies, 0.5),
+        zOfCheckedQuery: Math.abs(after.checked.estimate - exactTotal) / after.checked.stdError,
+      },
     };
   } finally {
     rmSync(dir, { recursive: true, force: true });
+  }
+}
+
+interface EstimateReply {
+  estimate: number;
+  stdError: number;
+  exact: { bytes: number | string };
+}
+
+/**
+ * Starts a server on the database, asks one question per block (CIDR filter, top destination
+ * /24s over the day) `queries` times after a first, cold one, asks the checked question, stops.
+ */
+async function querySession(databaseUrl: string, key: string, dayStart: number, queries: number) {
+  const server = await startChildServer(databaseUrl);
+  try {
+    const ask = async (block: string): Promise<EstimateReply> => {
+      const res = await fetch(`${server.url}/api/v1/estimate`, {
+        method: "POST",
+        headers: { authorization: `Bearer ${key}`, "content-type": "application/json" },
+        body: JSON.stringify({ from: dayStart, to: dayStart + 86_400_000, where: { src: [block] }, groupBy: "dst", prefixLength: 24, top: 10 }),
+      });
+      if (res.status !== 200) throw new Error(`estimate answered ${res.status}: ${await res.text()}`);
+      return (await res.json()) as EstimateReply;
+    };
+    let t0 = performance.now();
+    await ask(BLOCKS[0]);
+    const firstQueryMs = performance.now() - t0;
+    const latencies: number[] = [];
+    for (let i = 0; i < queries; i++) {
+      t0 = performance.now();
+      await ask(BLOCKS[i % BLOCKS.length]);
+      latencies.push(performance.now() - t0);
+    }
+    const checked = await ask(BLOCKS[1]);
+    return { firstQueryMs, latencies: latencies.sort((a, b) => a - b), checked };
+  } finally {
+    await server.stop();
   }
 }

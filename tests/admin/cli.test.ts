@@ -73,9 +73,27 @@ describe("npm run admin", () => {
     expect(rows).toContainEqual(["acme", "Acme Transit", "256", "15 min", "packets", "7 d", "1"]);
   });
 
+  it("creates a tenant with roll-up days and coordinated priorities (a 16-byte SipHash key made for it)", async () => {
+    const created = await run("tenant", "create", "coordinated-co", "--retention-days", "7", "--hourly-retention-days", "90", "--coordinated");
+    expect(created.code, created.stderr).toBe(0);
+    expect(created.stdout).toMatch(/fine windows 7 d, hourly until 90 d, coordinated priorities/);
+    const tenant = await findTenantBySlug(db, "coordinated-co");
+    expect(tenant).toMatchObject({ retentionDays: 7, hourlyRetentionDays: 90, coordinated: true });
+    expect(tenant!.coordinationSecret).toMatch(/^[0-9a-f]{32}$/);
+  });
+
   it("fills in the documented defaults", async () => {
     expect((await run("tenant", "create", "plain")).code).toBe(0);
-    expect(await findTenantBySlug(db, "plain")).toMatchObject({ name: "plain", sampleSize: 1024, windowSeconds: 300, weightAttribute: "bytes", retentionDays: 30 });
+    expect(await findTenantBySlug(db, "plain")).toMatchObject({
+      name: "plain",
+      sampleSize: 1024,
+      windowSeconds: 300,
+      weightAttribute: "bytes",
+      retentionDays: 30,
+      hourlyRetentionDays: 365,
+      coordinated: false,
+      coordinationSecret: null,
+    });
   });
 
   it("prints a new key alone on the last line of stdout and stores only its SHA-256", async () => {
@@ -181,6 +199,7 @@ describe("npm run admin", () => {
     [["tenant", "create", "never-made", "--window-seconds", "30"], /^admin: --window-seconds: must be one of 60, 300, 900, 3600 seconds$/],
     [["tenant", "create", "never-made", "--weight", "flows"], /^admin: --weight: /],
     [["tenant", "create", "never-made", "--retention-days", "0"], /^admin: --retention-days: /],
+    [["tenant", "create", "never-made", "--retention-days", "30", "--hourly-retention-days", "7"], /^admin: --hourly-retention-days: must be at least the fine-window days/],
     [["tenant", "create", "never-made", "--colour", "red"], /^admin: 'tenant create' has no option --colour$/],
     [["tenant", "create", "never-made", "--name"], /^admin: .*--name/],
     [["tenant", "create"], /^admin: 'tenant create' needs <slug>$/],
