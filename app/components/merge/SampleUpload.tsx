@@ -1,4 +1,5 @@
 import { useId, useRef, useState, type FormEvent } from "react";
+import { useRevalidator } from "react-router";
 import { Button, Cautions, Field, Panel, inputClass } from "../ui";
 
 /** What the upload route answers on success (see app/samples/import.server.ts). */
@@ -56,6 +57,8 @@ function readError(status: number, text: string): UploadError {
 export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug: string; collectors: string[]; maxBytes: number }) {
   const id = useId();
   const formRef = useRef<HTMLFormElement>(null);
+  // The page's loaders list collectors: a new one made by this upload shows without a reload.
+  const revalidator = useRevalidator();
   const [state, setState] = useState<UploadState>({ phase: "idle" });
   const [fileError, setFileError] = useState<string | undefined>();
 
@@ -90,6 +93,7 @@ export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug:
         try {
           setState({ phase: "done", summary: JSON.parse(request.responseText) as UploadSummary });
           formRef.current?.reset();
+          void revalidator.revalidate();
         } catch {
           setState({ phase: "failed", error: { code: "upload_failed", message: "The server's answer could not be read." } });
         }

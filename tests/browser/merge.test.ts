@@ -1,0 +1,113 @@
+import { writeFileSync } from "node:fs";
+import { join } from "node:path";
+import { afterAll, beforeAll, describe, expect, it } from "vitest";
+import { ensureUserByEmail, setMembership } from "~/auth/users.server";
+import { flowRecordToJson } from "~/flow/record";
+import { windowStartOf } from "~/ingest/window";
+import { benchRecords } from "../../scripts/bench/data";
+import { launchBrowser, signInWithBrowser, type TestBrowser } from "../helpers/browser";
+import { keyFor, postFlows, startTestServer, tenantWithKey, type TestServer } from "../helpers/server";
+
+// The Merge page in a real browser (Debian's chromium driven by playwright-core): an
+// engineer previews and stores a merge of two collectors, then uploads a sample file and
+// watches its progress. The numbers shown are checked against the API's own answers,
+// whose correctness the merge and import suites check against the merge rule of
+// Duffield, Lund, Thorup (J. ACM 54(6), 2007).
+
+const WINDOW_MS = 300_000;
+
+describe("the Merge page in a browser", () => {
+  let t: TestServer;
+  let b: TestBrowser;
+  let key = "";
+  let from = 0;
+  let to = 0;
+
+  beforeAll(async () => {
+    t = await startTestServer();
+    const riverline = await tenantWithKey(t.server, "riverline", { collector: "pop-a", sampleSize: 32 });
+    key = riverline.key;
+    const other = await keyFor(t.server, riverline.tenant.id, "pop-b");
+    await setMembership(t.server.db, (await ensureUserByEmail(t.server.db, "eli@example.com")).id, riverline.tenant.id, "engineer");
+    // Invented traffic on documentation space over the last hour, two disjoint streams.
+    to = windowStartOf(Date.now(), 300) - WINDOW_MS;
+    from = to - 6 * WINDOW_MS;
+    for (const [k, seed] of [[riverline.key, 61], [other.key, 62]] as const) {
+      const response = await postFlows(t.url, k, JSON.stringify([...benchRecords(600, from, to, seed)].map(flowRecordToJson)));
+      expect(response.status).toBe(200);
+    }
+    b = await launchBrowser();
+  }, 120_000);
+  afterAll(async () => {
+    await b?.close();
+    await t?.close();
+  });
+
+  it("previews a merge with τ and kept counts per window, then stores it and lists its provenance", async () => {
+    const { context, page, errors } = await signInWithBrowser(b.browser, t.url, "eli-engineer");
+    await page.goto("/t/riverline/merge");
+    await page.getByRole("checkbox", { name: "pop-a" }).check();
+    await page.getByRole("checkbox", { name: "pop-b" }).check();
+    const local = (ms: number) => new Date(ms).toISOString().slice(0, 16);
+    await page.getByLabel("From (UTC)").fill(local(from));
+    await page.getByLabel("To (UTC)").fill(local(to));
+    await page.getByLabel("Name").fill("both-pops");
+    await page.getByRole("button", { name: "Preview" }).click();
+    await page.getByText("Preview of both-pops").waitFor({ timeout: 30_000 });
+
+    // The same question through the API: the page must show the very windows, τ and kept counts.
+    const api = await fetch(`${t.url}/api/v1/merge`, {
+      method: "POST",
+      headers: { authorization: `Bearer ${key}`, "content-type": "application/json" },
+      body: JSON.stringify({ name: "both-pops", collectors: ["pop-a", "pop-b"], from, to, preview: true }),
+    });
+    const answer = (await api.json()) as { totals: { windows: number; kept: number }; windows: { tau: number; kept: number }[] };
+    expect(answer.totals.windows).toBe(6);
+    const rows = page.locator("table").first().locator("tbody tr");
+    expect(await rows.count()).toBe(answer.totals.windows);
+    const firstRow = await rows.first().innerText();
+    expect(firstRow).toContain(String(answer.windows[0].kept));
+
+    await page.getByRole("button", { name: "Create merge" }).click();
+    await page.getByText("Created both-pops").waitFor({ timeout: 30_000 });
+    const listed = await page.locator("main").innerText();
+    expect(listed).toMatch(/eli-engineer/);
+    expect(listed).toMatch(/pop-a,\s*pop-b/);
+    expect(errors, errors.join("\n")).toEqual([]);
+    await context.close();
+  });
+
+  it("uploads a sample file with a progress bar and reports what it imported", async () => {
+    const exported = await fetch(`${t.url}/api/v1/samples?from=${from}&to=${to}&collectors=pop-a`, { headers: { authorization: `Bearer ${key}` } });
+    expect(exported.status).toBe(200);
+    const path = join(t.dir, "pop-a.json");
+    writeFileSync(path, await exported.text());
+
+    const { context, page, errors } = await signInWithBrowser(b.browser, t.url, "eli-engineer");
+    await page.goto("/t/riverline/merge");
+    await page.getByLabel("Collector", { exact: true }).fill("pop-a-archive");
+    await page.getByLabel("Sample file").setInputFiles(path);
+    // Every value the progress bar shows while the file is sent, recorded as it changes.
+    await page.evaluate(() => {
+      const seen: string[] = [];
+      (window as unknown as { progressSeen: string[] }).progressSeen = seen;
+      new MutationObserver(() => {
+        const bar = document.querySelector('[role="progressbar"]');
+        const value = bar?.getAttribute("aria-valuenow");
+        if (value != null && seen.at(-1) !== value) seen.push(value);
+      }).observe(document.body, { subtree: true, childList: true, attributes: true });
+    });
+    await page.getByRole("button", { name: "Upload" }).click();
+    await page.getByText("Imported into collector “pop-a-archive”.").waitFor({ timeout: 30_000 });
+    // The bar appeared and was driven to the end by upload.onprogress.
+    const progress = await page.evaluate(() => (window as unknown as { progressSeen: string[] }).progressSeen);
+    expect(progress.length).toBeGreaterThan(0);
+    expect(progress.at(-1)).toBe("100");
+    const result = await page.getByText("windows stored").locator("..").innerText();
+    expect(result).toMatch(/6/);
+    // The page reloads its data: the new collector can be merged at once.
+    await page.getByRole("checkbox", { name: "pop-a-archive" }).waitFor({ timeout: 10_000 });
+    expect(errors, errors.join("\n")).toEqual([]);
+    await context.close();
+  });
+});
