@@ -49,7 +49,7 @@ export default function Ledger() {
     <>
       <PageHeader
         title="Ledger"
-        lead={<>Who did what in {view.tenant.name}, and when: changes to members, invitations, keys and settings, and the sign-ins of current members. Newest first; times in UTC.</>}
+        lead={<>Who did what in {view.tenant.name}, and when: changes to members, invitations, keys and settings, merges, sample-file imports and roll-up runs, and the sign-ins of current members. Newest first; times in UTC.</>}
       />
       <div className="grid gap-6">
         <Panel title="Filter">
@@ -102,7 +102,7 @@ export default function Ledger() {
               </EmptyState>
             ) : (
               <EmptyState title={filtered ? "No entries match these filters" : "The ledger is empty"}>
-                {filtered ? "Widen the dates, pick another action or clear the filters." : "Changes to members, invitations, keys and settings will appear here, with the sign-ins of members."}
+                {filtered ? "Widen the dates, pick another action or clear the filters." : "Changes to members, invitations, keys and settings, merges, imports and roll-up runs will appear here, with the sign-ins of members."}
               </EmptyState>
             )
           ) : (
