@@ -1,10 +1,8 @@
-import { createElement } from "react";
-import { renderToStaticMarkup } from "react-dom/server";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { ensureUserByEmail, setMembership } from "~/auth/users.server";
-import { SampleUpload } from "~/components/merge/SampleUpload";
 import type { FlowRecord } from "~/flow/record";
 import { parseAddress } from "~/net/address";
+import { formatBytes } from "~/components/merge/SampleUpload";
 import { mergeStates } from "~/sampling/merge";
 import { seededUniform } from "~/sampling/uniform";
 import { toSampleFile, type SampleWindow } from "~/samples/document";
@@ -226,16 +224,24 @@ describe("console sample upload (/t/:tenant/merge/upload)", () => {
     expect(get.headers.get("allow")).toBe("POST");
   });
 
-  it("renders the upload form with the collectors as suggestions, the limit and both cautions", () => {
-    const html = renderToStaticMarkup(createElement(SampleUpload, { tenantSlug: "riverline", collectors: ["pop-north", "pop-south"], maxBytes: 64 * 1024 * 1024 }));
+  it("renders the upload form with the collectors as suggestions, the limit and both cautions", async () => {
+    // The Merge page as the server renders it for an engineer: the form lives there.
+    const page = await eli.fetch("/t/riverline/merge");
+    expect(page.status).toBe(200);
+    const html = await page.text();
+    const streams = await rows("SELECT c.name FROM collectors c JOIN tenants t ON t.id = c.tenant_id WHERE t.slug = 'riverline' AND c.kind = 'stream' ORDER BY c.name");
+    const options = streams.map((r) => `<option value="${String(r.name)}"></option>`).join("");
     const collector = /<input[^>]*name="collector"[^>]*>/.exec(html)?.[0] ?? "";
     const list = /list="([^"]+)"/.exec(collector)?.[1];
     expect(list).toBeDefined();
-    expect(html).toContain(`<datalist id="${list}"><option value="pop-north"></option><option value="pop-south"></option></datalist>`);
+    expect(streams.length).toBeGreaterThan(0);
+    expect(html).toContain(`<datalist id="${list}">${options}</datalist>`);
     const file = /<input[^>]*name="file"[^>]*>/.exec(html)?.[0] ?? "";
     expect(file).toContain('type="file"');
     expect(file).toContain('accept=".json,application/json"');
-    expect(html).toContain("64 MiB");
+    // The limit as the server is configured (SAMPLES_MAX_BODY_BYTES), in binary units.
+    expect(html).toContain(formatBytes(MAX_BYTES));
+    expect(formatBytes(64 * 1024 * 1024)).toBe("64 MiB");
     expect(html).toMatch(/must not repeat records the collector already holds/);
     expect(html).toMatch(/95% interval/);
     expect(html).toMatch(/personal data/);
