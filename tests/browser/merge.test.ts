@@ -1,6 +1,6 @@
 import { writeFileSync } from "node:fs";
 import { join } from "node:path";
-import { afterAll, beforeAll, describe, expect, it } from "vitest";
+import { afterAll, beforeAll, describe, expect, it, vi } from "vitest";
 import { ensureUserByEmail, setMembership } from "~/auth/users.server";
 import { flowRecordToJson } from "~/flow/record";
 import { windowStartOf } from "~/ingest/window";
@@ -70,9 +70,9 @@ describe("the Merge page in a browser", () => {
 
     await page.getByRole("button", { name: "Create merge" }).click();
     await page.getByText("Created both-pops").waitFor({ timeout: 30_000 });
-    const listed = await page.locator("main").innerText();
-    expect(listed).toMatch(/eli-engineer/);
-    expect(listed).toMatch(/pop-a,\s*pop-b/);
+    // The list of merges comes from the page's loader, which reloads after the action.
+    await vi.waitFor(async () => expect(await page.locator("main").innerText()).toMatch(/eli-engineer/), { timeout: 30_000, interval: 100 });
+    expect(await page.locator("main").innerText()).toMatch(/pop-a,\s*pop-b/);
     expect(errors, errors.join("\n")).toEqual([]);
     await context.close();
   });
