@@ -33,6 +33,8 @@ export const envSchema = z
     // One core stays with the main thread (HTTP, sampling, the SQLite commit): on two cores one
     // parse worker measured faster than two.
     INGEST_PARSE_WORKERS: z.coerce.number().int().min(0).default(() => Math.max(1, availableParallelism() - 1)),
+    // Bytes of ingest bodies that may wait for a parse worker; beyond, POST /api/v1/flows answers 503 (retry).
+    INGEST_PARSE_QUEUE_BYTES: z.coerce.number().int().positive().default(268_435_456),
     IDEMPOTENCY_TTL_HOURS: z.coerce.number().positive().default(24),
     // Largest sample file an import (POST /api/v1/samples, the console upload) accepts.
     SAMPLES_MAX_BODY_BYTES: z.coerce.number().int().positive().default(67_108_864),

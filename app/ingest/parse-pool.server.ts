@@ -11,7 +11,22 @@ export interface ParsePoolOptions {
   logger: Logger;
   /** The worker script; tests substitute one that can be made to crash. */
   workerUrl?: URL;
+  /**
+   * Bytes of bodies that may wait for a worker; a body beyond is refused with ParsePoolFull
+   * (the API answers 503) rather than held, so overload cannot exhaust memory. Default 256 MiB.
+   */
+  maxQueuedBytes?: number;
 }
+
+/** The parse queue holds as many bytes as it may: the caller should retry later. */
+export class ParsePoolFull extends Error {
+  constructor(readonly maxQueuedBytes: number) {
+    super(`the parse queue holds its limit of ${maxQueuedBytes} bytes`);
+    this.name = "ParsePoolFull";
+  }
+}
+
+const DEFAULT_MAX_QUEUED_BYTES = 256 * 1024 * 1024;
 
 interface Task {
   job: ParseJob;
@@ -41,6 +56,7 @@ const WORKER_URL = new URL("./parse-worker-entry.mjs", import.meta.url);
 export class ParsePool implements FlowBodyParser {
   private readonly slots: Slot[] = [];
   private readonly queue: Task[] = [];
+  private queuedBytes = 0;
   private closed = false;
 
   private constructor(private readonly options: ParsePoolOptions) {}
@@ -66,8 +82,13 @@ export class ParsePool implements FlowBodyParser {
     if (this.closed) return Promise.reject(new Error("the parse pool is closed"));
     if (this.options.size === 0) return parseFlowBody(job);
     if (this.slots.length === 0) return Promise.reject(new Error("no parse worker is running"));
+    const limit = this.options.maxQueuedBytes ?? DEFAULT_MAX_QUEUED_BYTES;
+    const idle = this.slots.some((slot) => !slot.task);
+    // An idle worker takes the body at once; otherwise it waits, within the limit.
+    if (!idle && this.queue.length > 0 && this.queuedBytes + job.body.byteLength > limit) return Promise.reject(new ParsePoolFull(limit));
     return new Promise((resolve, reject) => {
       this.queue.push({ job, resolve, reject });
+      this.queuedBytes += job.body.byteLength;
       this.dispatch();
     });
   }
@@ -76,6 +97,7 @@ export class ParsePool implements FlowBodyParser {
   async close(): Promise<void> {
     this.closed = true;
     for (const task of this.queue.splice(0)) task.reject(new Error("the parse pool is closed"));
+    this.queuedBytes = 0;
     await Promise.all(this.slots.map((slot) => slot.worker.terminate()));
   }
 
@@ -111,8 +133,10 @@ export class ParsePool implements FlowBodyParser {
         if (!fault) this.options.logger.error({ code, threadId: worker.threadId }, "parse worker exited");
         // A worker that never got ready would only die again; one that did is replaced.
         if (slot.ready) this.spawn().catch((err: unknown) => this.options.logger.error({ err }, "parse worker could not be replaced"));
-        if (this.slots.length === 0) for (const task of this.queue.splice(0)) task.reject(error);
-        else this.dispatch();
+        if (this.slots.length === 0) {
+          for (const task of this.queue.splice(0)) task.reject(error);
+          this.queuedBytes = 0;
+        } else this.dispatch();
       });
     });
   }
@@ -122,6 +146,7 @@ export class ParsePool implements FlowBodyParser {
       if (this.queue.length === 0) return;
       if (slot.task) continue;
       const task = this.queue.shift()!;
+      this.queuedBytes -= task.job.body.byteLength;
       slot.task = task;
       let { body } = task.job;
       // A transfer moves the whole ArrayBuffer: a body that is a view into a larger one is copied

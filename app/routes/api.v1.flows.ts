@@ -1,5 +1,6 @@
 import { ApiError, authenticateKey, touchKey } from "~/auth/api-keys.server";
 import { readFlowBatch } from "~/ingest/body.server";
+import { ParsePoolFull } from "~/ingest/parse-pool.server";
 import type { Route } from "./+types/api.v1.flows";
 
 // Printable ASCII, as in the IETF idempotency-key header draft's examples; long enough for UUIDs and hashes.
@@ -40,6 +41,14 @@ export function loader() {
 
 function errorResponse(error: unknown, logger: Route.ActionArgs["context"]["logger"]): Response {
   if (error instanceof ApiError) return error.toResponse(error.status === 405 ? { Allow: "POST" } : undefined);
+  if (error instanceof ParsePoolFull) {
+    logger.warn({ limit: error.maxQueuedBytes }, "ingest: parse queue full");
+    return new ApiError(
+      503,
+      "overloaded",
+      "Weir is parsing as many batches as it can hold; nothing of this batch was stored. Retry after a second with the same Idempotency-Key.",
+    ).toResponse({ "Retry-After": "1" });
+  }
   if (isBusy(error)) {
     logger.warn({ err: error }, "ingest: database busy");
     return new ApiError(503, "busy", "The database is busy; nothing of this batch was stored. Retry with the same Idempotency-Key.").toResponse({ "Retry-After": "1" });

@@ -93,7 +93,7 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
       idempotencyTtlMs: env.IDEMPOTENCY_TTL_HOURS * 3600_000,
     });
     // Started here, not in route code: the route bundle cannot point at a worker file.
-    const pool = (parsePool = await ParsePool.start({ size: env.INGEST_PARSE_WORKERS, logger }));
+    const pool = (parsePool = await ParsePool.start({ size: env.INGEST_PARSE_WORKERS, logger, maxQueuedBytes: env.INGEST_PARSE_QUEUE_BYTES }));
 
     const app = express();
     app.disable("x-powered-by");

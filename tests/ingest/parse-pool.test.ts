@@ -12,7 +12,7 @@ import { parseFlowBatch } from "~/flow/record";
 import { readFlowBatch, type BodyLimits } from "~/ingest/body.server";
 import { decodeKeptRow, KEPT_ROW_BYTES } from "~/ingest/kept-codec";
 import { ReservoirManager } from "~/ingest/manager.server";
-import { ParsePool } from "~/ingest/parse-pool.server";
+import { ParsePool, ParsePoolFull } from "~/ingest/parse-pool.server";
 import { createLogger } from "~/logger.server";
 import { action } from "~/routes/api.v1.flows";
 import { createTenant, ensureCollector } from "~/tenants.server";
@@ -184,6 +184,50 @@ describe("a parse worker that dies", () => {
     expect(pool.workers).toBe(1);
     const stored = await db.$client.execute("SELECT SUM(records) AS n FROM reservoirs");
     expect(Number(stored.rows[0].n)).toBe(records.length);
+  });
+});
+
+describe("a full parse queue", () => {
+  const limits: BodyLimits = { maxBodyBytes: 1 << 20, maxRecords: 1000 };
+  const job = (text: string) => ({ body: new TextEncoder().encode(text), ndjson: false, gzip: false, limits });
+  const body = JSON.stringify(records);
+
+  it("refuses a body beyond its byte limit while the worker is busy, and takes bodies again once it drains", async () => {
+    const pool = await ParsePool.start({ size: 1, logger, maxQueuedBytes: Math.floor(body.length * 1.5) });
+    try {
+      // The first goes to the idle worker, the second waits (the queue was empty), the third would pass the limit.
+      const first = pool.parse(job(body));
+      const second = pool.parse(job(body));
+      const third = pool.parse(job(body));
+      await expect(third).rejects.toBeInstanceOf(ParsePoolFull);
+      expect((await first).ok).toBe(true);
+      expect((await second).ok).toBe(true);
+      expect((await pool.parse(job(body))).ok).toBe(true);
+    } finally {
+      await pool.close();
+    }
+  });
+
+  it("answers 503 with Retry-After and stores nothing", async () => {
+    const dir = mkdtempSync(join(tmpdir(), "weir-parse-full-"));
+    const db = await createDb(`file:${join(dir, "weir.db")}`);
+    try {
+      await runMigrations(db);
+      const tenant = await createTenant(db, { slug: "full", sampleSize: 16, windowSeconds: 300 });
+      const collector = await ensureCollector(db, tenant.id, "edge-1");
+      const { key } = await createApiKey(db, { tenantId: tenant.id, collectorId: collector.id, scopes: "ingest" });
+      // A parser whose queue is full, as the pool is under overload.
+      const full = { parse: () => Promise.reject(new ParsePoolFull(1024)) };
+      const context = { db, env: parseEnv({ NODE_ENV: "test" }), logger, manager: new ReservoirManager(db, { node: "test" }), parsePool: full } as unknown as AppLoadContext;
+      const response = await action({ request: post(body, { authorization: `Bearer ${key}` }), context, params: {} } as Parameters<typeof action>[0]);
+      expect(response.status).toBe(503);
+      expect(response.headers.get("retry-after")).toBe("1");
+      expect((await response.json()).error).toMatchObject({ code: "overloaded", message: expect.stringContaining("nothing of this batch was stored") });
+      expect((await db.$client.execute("SELECT count(*) FROM reservoirs")).rows[0][0]).toBe(0);
+    } finally {
+      closeDb(db);
+      rmSync(dir, { recursive: true, force: true });
+    }
   });
 });
 
