@@ -32,6 +32,8 @@ export interface OpenReservoir {
 export interface IntakeCollector {
   name: string;
   lastSeenAt: number | null;
+  /** Never sent a batch, but holds samples imported from sample files: not expected to send. */
+  importsOnly: boolean;
   quiet: boolean;
   recordsLastMinute: number;
   batchesLastMinute: number;
@@ -81,7 +83,11 @@ async function intakeSnapshot(
 
   const [collectorRows, rateRows, reservoirRows] = await Promise.all([
     // Merged collectors receive no records; the Merge page lists them.
-    run("SELECT id, name, last_seen_at FROM collectors WHERE tenant_id = ? AND kind = 'stream' ORDER BY name", [tenant.id]),
+    run(
+      "SELECT c.id, c.name, c.last_seen_at, EXISTS (SELECT 1 FROM reservoirs r WHERE r.collector_id = c.id AND r.records > 0) " +
+        "FROM collectors c WHERE c.tenant_id = ? AND c.kind = 'stream' ORDER BY c.name",
+      [tenant.id],
+    ),
     run(
       "SELECT collector_id, SUM(record_count), COUNT(*) FROM ingest_batches WHERE tenant_id = ? AND received_at > ? AND received_at <= ? GROUP BY collector_id",
       [tenant.id, now - RATE_SECONDS * 1000, now],
@@ -119,12 +125,14 @@ async function intakeSnapshot(
   const collectors: IntakeCollector[] = collectorRows.rows.map((row) => {
     const id = Number(row[0]);
     const lastSeenAt = row[2] === null ? null : Number(row[2]);
+    const importsOnly = lastSeenAt === null && Number(row[3]) === 1;
     const rate = rates.get(id) ?? { records: 0, batches: 0 };
     const entry = perCollector.get(id);
     return {
       name: String(row[1]),
       lastSeenAt,
-      quiet: lastSeenAt === null || now - lastSeenAt > QUIET_AFTER_WINDOWS * windowMs,
+      importsOnly,
+      quiet: (lastSeenAt === null && !importsOnly) || (lastSeenAt !== null && now - lastSeenAt > QUIET_AFTER_WINDOWS * windowMs),
       recordsLastMinute: rate.records,
       batchesLastMinute: rate.batches,
       recordsPerSecond: rate.records / RATE_SECONDS,

@@ -55,6 +55,7 @@ describe("Intake: ingest health per collector", () => {
   beforeAll(async () => {
     t = await startTestServer();
     const riverline = await tenantWithKey(t.server, "riverline", { collector: "edge-1", sampleSize: K, windowSeconds: WINDOW_SECONDS });
+    riverlineKey = riverline.key;
     // A collector with a key that never sends anything.
     await keyFor(t.server, riverline.tenant.id, "edge-2");
     const tributary = await tenantWithKey(t.server, "tributary", { collector: "foreign-edge", windowSeconds: WINDOW_SECONDS });
@@ -89,6 +90,8 @@ describe("Intake: ingest health per collector", () => {
     after = Date.now();
   });
   afterAll(() => t?.close());
+
+  let riverlineKey = "";
 
   async function snapshot(who: SignedIn = viewer): Promise<IntakeSnapshot> {
     const res = await who.fetch("/t/riverline/intake-data");
@@ -145,6 +148,21 @@ describe("Intake: ingest health per collector", () => {
     // Its batch was received three windows ago: not part of the last minute.
     expect(edge3.recordsLastMinute).toBe(0);
     expect(edge3.windows[0]).toEqual({ start: open - 3 * WINDOW_MS, records: 1, bytes: 500, packets: 1 });
+  });
+
+  it("tells a collector that only received sample files (imports only) from one that never sent: not quiet", async () => {
+    const range = `from=${open - 3 * WINDOW_MS}&to=${open + WINDOW_MS}&collectors=edge-1`;
+    const file = await fetch(`${t.url}/api/v1/samples?${range}`, { headers: { authorization: `Bearer ${riverlineKey}` } });
+    expect(file.status).toBe(200);
+    const imported = await fetch(`${t.url}/api/v1/samples?collector=archive`, {
+      method: "POST",
+      headers: { authorization: `Bearer ${riverlineKey}`, "content-type": "application/json" },
+      body: await file.text(),
+    });
+    expect(imported.status).toBe(200);
+    const s = await snapshot();
+    expect(s.collectors.find((c) => c.name === "archive")).toMatchObject({ lastSeenAt: null, importsOnly: true, quiet: false, recordsLastMinute: 0 });
+    expect(s.collectors.find((c) => c.name === "edge-2")).toMatchObject({ lastSeenAt: null, importsOnly: false, quiet: true });
   });
 
   it("serves the page and its data to a viewer; 404 to a member of another tenant; sign-in for nobody", async () => {

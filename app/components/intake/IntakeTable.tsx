@@ -103,7 +103,8 @@ export function IntakeTable({ snapshot }: { snapshot: IntakeSnapshot }) {
         </table>
       </div>
       <p className="text-xs text-river-300">
-        Quiet: no batch for more than {snapshot.quietAfterWindows} windows ({windowLength(snapshot.quietAfterWindows * snapshot.windowSeconds)}), or never.
+        Quiet: no batch for more than {snapshot.quietAfterWindows} windows ({windowLength(snapshot.quietAfterWindows * snapshot.windowSeconds)}), or never (a collector fed only by uploaded
+        sample files shows "imports only" instead).
         Records per second count the batches received; bytes per window count each record in the window of its start time, late ones included.
       </p>
     </div>
@@ -149,7 +150,13 @@ function CollectorRow({ c, snapshot }: { c: IntakeCollector; snapshot: IntakeSna
             ))}
       </td>
       <td className="py-2 text-river-200">
-        {c.lastSeenAt === null ? <span className="text-sand-200">never</span> : <span title={formatUtc(c.lastSeenAt)}>{age(snapshot.now, c.lastSeenAt)}</span>}
+        {c.lastSeenAt !== null ? (
+          <span title={formatUtc(c.lastSeenAt)}>{age(snapshot.now, c.lastSeenAt)}</span>
+        ) : c.importsOnly ? (
+          <span title="This collector's samples came from uploaded sample files; it has never sent flow records">imports only</span>
+        ) : (
+          <span className="text-sand-200">never</span>
+        )}
       </td>
     </tr>
   );
