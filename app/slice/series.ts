@@ -52,10 +52,15 @@ export function buildSeries(answer: Pick<EstimateAnswer, "groups" | "from" | "to
     .filter((r) => r.windowSeconds > windowSeconds)
     .map((r) => ({ from: Date.parse(r.from), to: Date.parse(r.to), step: r.windowSeconds * 1000 }));
   const offGrid = (start: number) => coarser.some((c) => start >= c.from && start < c.to && start % c.step !== 0);
+  // Before the first longer window, up to the range start: the longer window holding this
+  // time began before `from`, so the answer left it out (windows count by their start). What
+  // happened then is unknown here, not 0.
+  const leftOut = (start: number) => coarser.some((c) => start < c.from && Math.floor(start / c.step) * c.step < from && start >= from);
   if (Number.isFinite(first) && step > 0 && (to - first) / step <= MAX_GRID_POINTS) {
     for (let start = first; start < to; start += step) {
       if (!byStart.has(start) && !offGrid(start)) {
-        byStart.set(start, truncated ? { start, estimate: null, low: null, high: null, rough: false } : { start, estimate: 0, low: 0, high: 0, rough: false });
+        const unknown = truncated || leftOut(start);
+        byStart.set(start, unknown ? { start, estimate: null, low: null, high: null, rough: false } : { start, estimate: 0, low: 0, high: 0, rough: false });
       }
     }
   }

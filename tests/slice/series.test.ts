@@ -60,4 +60,20 @@ describe("the per-window series", () => {
       [T0 + 2 * H + W, 0],
     ]);
   });
+
+  test("leaves a gap, not zeros, between the range start and the first hourly window when the hour holding it was left out", () => {
+    const H = 3_600_000;
+    const from = T0 + 4 * W; // 02:20: the hourly window of 02:00 starts before it, so it is not in the answer
+    const answer = {
+      groups: [{ ...group(0, 600), key: new Date(T0 + H).toISOString() }],
+      from: new Date(from).toISOString(),
+      to: new Date(T0 + 2 * H).toISOString(),
+      windows: 1,
+      resolution: [{ windowSeconds: 3600, windows: 1, from: new Date(T0 + H).toISOString(), to: new Date(T0 + 2 * H).toISOString() }],
+    };
+    const points = buildSeries(answer, 300).points;
+    expect(points.filter((p) => p.start < T0 + H).every((p) => p.estimate === null)).toBe(true);
+    expect(points.filter((p) => p.start < T0 + H)).toHaveLength(8); // 02:20 … 02:55
+    expect(points.find((p) => p.start === T0 + H)?.estimate).toBe(600);
+  });
 });
