@@ -99,10 +99,12 @@ describe("the Merge page in a browser", () => {
     });
     await page.getByRole("button", { name: "Upload" }).click();
     await page.getByText("Imported into collector “pop-a-archive”.").waitFor({ timeout: 30_000 });
-    // The bar appeared and was driven to the end by upload.onprogress.
+    // The bar appeared while sending and ends full once the file is sent and imported.
     const progress = await page.evaluate(() => (window as unknown as { progressSeen: string[] }).progressSeen);
     expect(progress.length).toBeGreaterThan(0);
     expect(progress.at(-1)).toBe("100");
+    expect(await page.getByRole("progressbar", { name: "Upload progress" }).getAttribute("aria-valuenow")).toBe("100");
+    expect(await page.getByText(/sent and imported/).count()).toBe(1);
     const result = await page.getByText("windows stored").locator("..").innerText();
     expect(result).toMatch(/6/);
     // The page reloads its data: the new collector can be merged at once.

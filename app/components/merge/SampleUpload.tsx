@@ -22,7 +22,7 @@ interface UploadError {
 type UploadState =
   | { phase: "idle" }
   | { phase: "sending"; sentBytes: number; totalBytes: number }
-  | { phase: "done"; summary: UploadSummary }
+  | { phase: "done"; summary: UploadSummary; totalBytes: number }
   | { phase: "failed"; error: UploadError };
 
 /** "1.5 MiB": binary units, as the body limit is stated in bytes. */
@@ -83,6 +83,8 @@ export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug:
     request.upload.onprogress = (progress) => {
       if (progress.lengthComputable) setState({ phase: "sending", sentBytes: progress.loaded, totalBytes: progress.total });
     };
+    // A small file may go out in one piece without a progress event: the end of the upload still shows.
+    request.upload.onload = () => setState((now) => (now.phase === "sending" ? { ...now, sentBytes: now.totalBytes } : now));
     request.onload = () => {
       // XMLHttpRequest follows redirects by itself: landing elsewhere means the session ended.
       if (new URL(request.responseURL, window.location.href).pathname !== uploadPath) {
@@ -91,7 +93,7 @@ export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug:
       }
       if (request.status >= 200 && request.status < 300) {
         try {
-          setState({ phase: "done", summary: JSON.parse(request.responseText) as UploadSummary });
+          setState({ phase: "done", summary: JSON.parse(request.responseText) as UploadSummary, totalBytes: file.size });
           formRef.current?.reset();
           void revalidator.revalidate();
         } catch {
@@ -153,7 +155,12 @@ export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug:
       </form>
 
       {state.phase === "sending" ? <UploadProgress sentBytes={state.sentBytes} totalBytes={state.totalBytes} /> : null}
-      {state.phase === "done" ? <UploadResult summary={state.summary} /> : null}
+      {state.phase === "done" ? (
+        <>
+          <UploadProgress sentBytes={state.totalBytes} totalBytes={state.totalBytes} done />
+          <UploadResult summary={state.summary} />
+        </>
+      ) : null}
       {state.phase === "failed" ? <UploadFailure error={state.error} /> : null}
 
       <div className="mt-4">
@@ -163,7 +170,7 @@ export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug:
   );
 }
 
-function UploadProgress({ sentBytes, totalBytes }: { sentBytes: number; totalBytes: number }) {
+function UploadProgress({ sentBytes, totalBytes, done = false }: { sentBytes: number; totalBytes: number; done?: boolean }) {
   const percent = totalBytes > 0 ? Math.min(100, Math.round((sentBytes / totalBytes) * 100)) : 0;
   return (
     <div className="mt-4" role="status" aria-live="polite">
@@ -179,7 +186,7 @@ function UploadProgress({ sentBytes, totalBytes }: { sentBytes: number; totalByt
       </div>
       <p className="mt-1 text-xs text-river-300">
         {percent}% · {formatBytes(sentBytes)} of {formatBytes(totalBytes)}
-        {percent === 100 ? " · merging on the server…" : ""}
+        {done ? " · sent and imported" : percent === 100 ? " · merging on the server…" : ""}
       </p>
     </div>
   );
