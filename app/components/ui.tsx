@@ -1,4 +1,5 @@
 import type { ButtonHTMLAttributes, ReactNode } from "react";
+import { Form, Link } from "react-router";
 
 /**
  * The console's small shared pieces, so every page has the same look: page header,
@@ -101,5 +102,48 @@ export function Cautions({ compact = false }: { compact?: boolean }) {
       <p className="rounded-md border-l-4 border-sand-400 bg-river-900 px-4 py-3 text-sm text-river-200">{statistical}</p>
       <p className="rounded-md border-l-4 border-sand-400 bg-river-900 px-4 py-3 text-sm text-river-200">{personal}</p>
     </div>
+  );
+}
+
+/**
+ * The confirm step of a destructive action in a table, as a row under the one it acts on:
+ * the consequence in words, the action's button, and Cancel (a link back to the page
+ * without the confirm parameter).
+ */
+export function ConfirmRow({
+  colSpan,
+  action,
+  fields,
+  message,
+  label,
+  busyLabel,
+  busy,
+}: {
+  colSpan: number;
+  action: string;
+  /** Hidden form fields: the intent and what it acts on. */
+  fields: Record<string, string>;
+  message: string;
+  label: string;
+  busyLabel: string;
+  busy: boolean;
+}) {
+  return (
+    <tr className="border-b border-river-800 bg-red-950/30">
+      <td colSpan={colSpan} className="px-3 py-3">
+        <Form method="post" action={action} preventScrollReset className="flex flex-wrap items-center gap-3">
+          {Object.entries(fields).map(([name, value]) => (
+            <input key={name} type="hidden" name={name} value={value} />
+          ))}
+          <p className="text-sm text-red-100">{message}</p>
+          <Button tone="danger" type="submit" disabled={busy} autoFocus>
+            {busy ? busyLabel : label}
+          </Button>
+          <Link to="." preventScrollReset className="text-sm text-river-200 underline-offset-4 hover:underline">
+            Cancel
+          </Link>
+        </Form>
+      </td>
+    </tr>
   );
 }

@@ -73,7 +73,7 @@ export interface PlannedMerge {
   sampleSize: number;
   coordinated: boolean;
   totals: MergeTotalsJson;
-  windows: { windowStart: number; windowSeconds: number; inputs: number; records: number; k: number; tau: number; kept: number; duplicatesDropped: number }[];
+  windows: { windowStart: number; windowSeconds: number; inputs: number; duplicatesDropped: number; state: { k: number; tau: number; records: number; kept: readonly unknown[] } }[];
 }
 
 /**
@@ -90,10 +90,10 @@ export function mergeAnswer(
     windowStart: new Date(w.windowStart).toISOString(),
     windowSeconds: w.windowSeconds,
     inputs: w.inputs,
-    records: w.records,
-    k: w.k,
-    tau: w.tau,
-    kept: w.kept,
+    records: w.state.records,
+    k: w.state.k,
+    tau: w.state.tau,
+    kept: w.state.kept.length,
     duplicatesDropped: w.duplicatesDropped,
   }));
   const truncated = plan.windows.length > shown.length;

@@ -28,12 +28,8 @@ export interface MergedWindowPlan {
   windowSeconds: number;
   /** Input reservoirs merged. */
   inputs: number;
-  /** Exact records seen by the inputs (less the duplicates found, for coordinated tenants). */
-  records: number;
-  k: number;
-  tau: number;
-  kept: number;
   duplicatesDropped: number;
+  /** The merged sample: k, τ, kept records, and the exact records seen by the inputs (less the duplicates found, for coordinated tenants). */
   state: WindowState;
 }
 
@@ -112,10 +108,6 @@ export async function planMerge(db: Db, tenant: MergeTenant, request: MergeReque
         windowStart: group[0].windowStart,
         windowSeconds: group[0].windowSeconds,
         inputs: group.length,
-        records: state.records,
-        k: state.k,
-        tau: state.tau,
-        kept: state.kept.length,
         duplicatesDropped,
         state,
       });
@@ -124,8 +116,8 @@ export async function planMerge(db: Db, tenant: MergeTenant, request: MergeReque
 
   const totals: MergeTotals = { windows: windows.length, kept: 0, records: 0, duplicatesDropped: 0 };
   for (const w of windows) {
-    totals.kept += w.kept;
-    totals.records += w.records;
+    totals.kept += w.state.kept.length;
+    totals.records += w.state.records;
     totals.duplicatesDropped += w.duplicatesDropped;
   }
   return {

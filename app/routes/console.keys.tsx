@@ -3,7 +3,7 @@ import { data, Form, Link, useNavigation, useSearchParams } from "react-router";
 import { createApiKey, revokeApiKey, scopesFor } from "~/auth/api-keys.server";
 import { requireMember } from "~/auth/guards.server";
 import { recordAudit } from "~/audit.server";
-import { Button, EmptyState, ErrorState, Field, inputClass, PageHeader, Panel } from "~/components/ui";
+import { Button, ConfirmRow, EmptyState, ErrorState, Field, inputClass, PageHeader, Panel } from "~/components/ui";
 import { collectorNameRule, findTenantKey, keyActionSchema, listCollectorNames, listTenantKeys, type KeyRow } from "~/keys/keys.server";
 import { SCOPE_CHOICES, SCOPE_HELP, scopeLabel, type ScopeChoice } from "~/keys/scope";
 import { SecretOnce } from "~/keys/SecretOnce";
@@ -356,23 +356,15 @@ function KeyRows({ k, active, confirm, tenantSlug, revoking }: { k: KeyRow; acti
         </td>
       </tr>
       {confirm ? (
-        <tr className="border-b border-river-800 bg-red-950/30">
-          <td colSpan={8} className="px-3 py-3">
-            <Form method="post" action={`/t/${tenantSlug}/keys`} preventScrollReset className="flex flex-wrap items-center gap-3">
-              <input type="hidden" name="intent" value="revoke" />
-              <input type="hidden" name="prefix" value={k.prefix} />
-              <p className="text-sm text-red-100">
-                {`Revoke ${k.prefix} of collector ${k.collector}? Every request with it gets 401 from now on; this cannot be undone.`}
-              </p>
-              <Button tone="danger" type="submit" disabled={revoking} autoFocus>
-                {revoking ? "Revoking…" : "Revoke key"}
-              </Button>
-              <Link to="." preventScrollReset className="text-sm text-river-200 underline-offset-4 hover:underline">
-                Cancel
-              </Link>
-            </Form>
-          </td>
-        </tr>
+        <ConfirmRow
+          colSpan={8}
+          action={`/t/${tenantSlug}/keys`}
+          fields={{ intent: "revoke", prefix: k.prefix }}
+          message={`Revoke ${k.prefix} of collector ${k.collector}? Every request with it gets 401 from now on; this cannot be undone.`}
+          label="Revoke key"
+          busyLabel="Revoking…"
+          busy={revoking}
+        />
       ) : null}
     </>
   );

@@ -55,13 +55,13 @@ export interface WindowFilter {
   windowSeconds?: number;
 }
 
-// SQLite allows 32 766 bound parameters per statement; stay well below.
-const IDS_PER_SELECT = 500;
-
 /**
  * The tenant's reservoirs whose window starts in [from, to), with their kept records,
  * ordered by window, collector, node. Empty rows (a batch that failed after creating its
- * reservoir) are skipped.
+ * reservoir) are skipped. One statement, so each reservoir's τ and counters come from the
+ * same snapshot as its kept records even while ingest commits; one result row per
+ * reservoir, its kept rows (kept-codec.ts layout) concatenated by group_concat, which
+ * copies blob bytes as they are: a driver object per kept record costs far more.
  */
 export async function readStoredWindows(executor: Executor, tenantId: number, filter: WindowFilter): Promise<StoredWindow[]> {
   const args: InValue[] = [tenantId, filter.from, filter.to];
@@ -81,53 +81,38 @@ export async function readStoredWindows(executor: Executor, tenantId: number, fi
   }
   const found = await executor.execute({
     sql:
-      "SELECT r.id, r.collector_id, c.name, r.window_start, r.window_seconds, r.node, r.k, r.tau, r.records, r.bytes, r.packets, r.next_seq, r.updated_at " +
-      `FROM reservoirs r JOIN collectors c ON c.id = r.collector_id AND c.tenant_id = r.tenant_id WHERE ${where} ` +
-      "ORDER BY r.window_start, r.window_seconds, c.name, r.node",
+      "SELECT r.id, r.collector_id, c.name, r.window_start, r.window_seconds, r.node, r.k, r.tau, r.records, r.bytes, r.packets, r.next_seq, r.updated_at, " +
+      "CAST(group_concat(k.data, '') AS BLOB) " +
+      "FROM reservoirs r JOIN collectors c ON c.id = r.collector_id AND c.tenant_id = r.tenant_id JOIN kept_records k ON k.reservoir_id = r.id " +
+      `WHERE ${where} GROUP BY r.id ORDER BY r.window_start, r.window_seconds, c.name, r.node`,
     args,
   });
-  const windows: StoredWindow[] = found.rows.map((row) => ({
-    id: Number(row[0]),
-    collectorId: Number(row[1]),
-    collector: String(row[2]),
-    windowStart: Number(row[3]),
-    windowSeconds: Number(row[4]),
-    node: String(row[5]),
-    k: Number(row[6]),
-    tau: Number(row[7]),
-    records: Number(row[8]),
-    // Decimal text: the sums of unsigned 64-bit counters can pass SQLite's signed INTEGER.
-    bytes: BigInt(String(row[9])),
-    packets: BigInt(String(row[10])),
-    nextSeq: Number(row[11]),
-    updatedAt: Number(row[12]),
-    kept: [],
-  }));
-  const byId = new Map(windows.map((w) => [w.id, w]));
-  const statements: InStatement[] = [];
-  for (let i = 0; i < windows.length; i += IDS_PER_SELECT) {
-    const ids = windows.slice(i, i + IDS_PER_SELECT).map((w) => w.id);
-    statements.push({
-      // One row per reservoir with its kept rows in one blob: a driver object per kept record costs far more.
-      sql:
-        "SELECT k.reservoir_id, CAST(group_concat(k.data, '') AS BLOB) FROM kept_records k JOIN reservoirs r ON r.id = k.reservoir_id " +
-        `WHERE r.tenant_id = ? AND k.reservoir_id IN (${ids.map(() => "?").join(", ")}) GROUP BY k.reservoir_id`,
-      args: [tenantId, ...ids],
-    });
-  }
-  const results = statements.length === 0 ? [] : await executor.batch(statements);
-  for (const result of results) {
-    for (const row of result.rows) {
-      const window = byId.get(Number(row[0]))!;
-      const data = new Uint8Array(row[1] as ArrayBuffer);
-      for (let offset = 0; offset < data.byteLength; offset += KEPT_ROW_BYTES) {
-        const { priority, weight, record } = decodeKeptRow(data, offset);
-        window.kept.push({ item: record, weight, priority });
-      }
-      window.kept.sort((a, b) => b.priority - a.priority);
+  return found.rows.map((row) => {
+    const data = new Uint8Array(row[13] as ArrayBuffer);
+    const kept: Kept<FlowRecord>[] = [];
+    for (let offset = 0; offset < data.byteLength; offset += KEPT_ROW_BYTES) {
+      const { priority, weight, record } = decodeKeptRow(data, offset);
+      kept.push({ item: record, weight, priority });
     }
-  }
-  return windows;
+    kept.sort((a, b) => b.priority - a.priority);
+    return {
+      id: Number(row[0]),
+      collectorId: Number(row[1]),
+      collector: String(row[2]),
+      windowStart: Number(row[3]),
+      windowSeconds: Number(row[4]),
+      node: String(row[5]),
+      k: Number(row[6]),
+      tau: Number(row[7]),
+      records: Number(row[8]),
+      // Decimal text: the sums of unsigned 64-bit counters can pass SQLite's signed INTEGER.
+      bytes: BigInt(String(row[9])),
+      packets: BigInt(String(row[10])),
+      nextSeq: Number(row[11]),
+      updatedAt: Number(row[12]),
+      kept,
+    };
+  });
 }
 
 /** The result of merging window states, and how many duplicate kept records were counted once. */
@@ -159,21 +144,11 @@ export function mergeWindowStates(inputs: readonly WindowState[], kWanted: numbe
     const merged = mergeStates(states, kWanted);
     return { state: { k: merged.k, tau: merged.tau, records, bytes, packets, kept: merged.kept }, duplicatesDropped: 0 };
   }
-  const { state, duplicatesDropped } = mergeCoordinated(states, kWanted, flowKeyBytes);
-  if (duplicatesDropped > 0) {
-    // Take the counters of each repeated copy off once, identified as mergeCoordinated does.
-    const counted = new Set<string>();
-    for (const input of inputs) {
-      for (const entry of input.kept) {
-        const identity = `${Buffer.from(flowKeyBytes(entry.item)).toString("hex")}/${entry.priority}`;
-        if (!counted.has(identity)) {
-          counted.add(identity);
-          continue;
-        }
-        bytes -= entry.item.bytes;
-        packets -= entry.item.packets;
-      }
-    }
+  const { state, duplicatesDropped, dropped } = mergeCoordinated(states, kWanted, flowKeyBytes);
+  // Each dropped copy's counters were counted in its own input's exact sums as well.
+  for (const copy of dropped) {
+    bytes -= copy.item.bytes;
+    packets -= copy.item.packets;
   }
   return { state: { k: state.k, tau: state.tau, records: records - duplicatesDropped, bytes, packets, kept: state.kept }, duplicatesDropped };
 }

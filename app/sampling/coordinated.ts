@@ -92,6 +92,8 @@ export interface CoordinatedMerge<T> {
   state: ReservoirState<T>;
   /** Kept records dropped because an input already gave the same flow with the same priority. */
   duplicatesDropped: number;
+  /** Those dropped copies themselves (their counters were counted once already). */
+  dropped: Kept<T>[];
 }
 
 const hex = (bytes: Uint8Array) => Array.from(bytes, (b) => b.toString(16).padStart(2, "0")).join("");
@@ -123,7 +125,7 @@ const hex = (bytes: Uint8Array) => Array.from(bytes, (b) => b.toString(16).padSt
  * @example
  * // Collectors A and B both exported flow f (priority 9); A also saw g (5), B saw h (7).
  * mergeCoordinated([{ k: 2, tau: 0, seen: 2, kept: [f9, g5] }, { k: 2, tau: 0, seen: 2, kept: [f9, h7] }], Infinity, (r) => flowKeyBytes(r))
- * // { state: { k: 2, tau: 5, seen: 3, kept: [f9, h7] }, duplicatesDropped: 1 }
+ * // { state: { k: 2, tau: 5, seen: 3, kept: [f9, h7] }, duplicatesDropped: 1, dropped: [B's f9] }
  */
 export function mergeCoordinated<T>(
   inputs: readonly ReservoirState<T>[],
@@ -135,13 +137,13 @@ export function mergeCoordinated<T>(
   if (!Number.isInteger(k) || k < 1) throw new RangeError(`merged sample size must be a positive integer, got ${k}`);
   const taken = new Set<string>();
   const union: Kept<T>[] = [];
-  let duplicatesDropped = 0;
+  const dropped: Kept<T>[] = [];
   for (const input of inputs) {
     for (const entry of input.kept) {
       // A double's shortest decimal form names it exactly, so equal strings mean equal priorities.
       const identity = `${hex(flowKeyOf(entry.item))}/${entry.priority}`;
       if (taken.has(identity)) {
-        duplicatesDropped++;
+        dropped.push(entry);
         continue;
       }
       taken.add(identity);
@@ -155,9 +157,10 @@ export function mergeCoordinated<T>(
     state: {
       k,
       tau,
-      seen: inputs.reduce((n, r) => n + r.seen, 0) - duplicatesDropped,
+      seen: inputs.reduce((n, r) => n + r.seen, 0) - dropped.length,
       kept: union.slice(0, k),
     },
-    duplicatesDropped,
+    duplicatesDropped: dropped.length,
+    dropped,
   };
 }

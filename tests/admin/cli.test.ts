@@ -1,34 +1,15 @@
 // The admin CLI as a user runs it: a child process against a temporary database.
-import { execFile } from "node:child_process";
 import { createHash } from "node:crypto";
 import { mkdtempSync, readdirSync, readFileSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
-import { fileURLToPath } from "node:url";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { ApiError, authenticateKey, hashKey } from "~/auth/api-keys.server";
 import { closeDb, createDb, type Db } from "~/db/client.server";
 import { findTenantBySlug } from "~/tenants.server";
+import { admin } from "../helpers/admin";
 
-const ROOT = fileURLToPath(new URL("../..", import.meta.url));
 const KEY_PATTERN = /^weir_[0-9a-f]{8}_[A-Za-z0-9_-]{32}$/;
-
-interface Run {
-  code: number;
-  stdout: string;
-  stderr: string;
-}
-
-function admin(databaseUrl: string, args: string[]): Promise<Run> {
-  return new Promise((resolve) => {
-    execFile(
-      process.execPath,
-      ["--import", "tsx", "scripts/admin.ts", ...args],
-      { cwd: ROOT, env: { ...process.env, DATABASE_URL: databaseUrl, DATABASE_AUTH_TOKEN: "" } },
-      (error, stdout, stderr) => resolve({ code: error ? Number(error.code) : 0, stdout, stderr }),
-    );
-  });
-}
 
 /** The rows of a table `admin` printed: columns are separated by two or more spaces. */
 function tableRows(stdout: string): string[][] {

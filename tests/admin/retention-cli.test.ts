@@ -1,38 +1,19 @@
 // `npm run admin -- retention run` as a user runs it: a child process against a temporary
 // database that this test fills through the reservoir manager, as a server would.
-import { execFile } from "node:child_process";
 import { mkdtempSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
-import { fileURLToPath } from "node:url";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { closeDb, createDb, type Db } from "~/db/client.server";
 import { parseFlowRecord, type FlowRecord } from "~/flow/record";
 import { ReservoirManager } from "~/ingest/manager.server";
 import { seededUniform } from "~/sampling/uniform";
 import { ensureCollector, findTenantBySlug } from "~/tenants.server";
+import { admin } from "../helpers/admin";
 
-const ROOT = fileURLToPath(new URL("../..", import.meta.url));
 const T0 = Date.UTC(2026, 0, 5, 0, 0);
 const HOUR_MS = 3_600_000;
 const DAY_MS = 86_400_000;
-
-interface Run {
-  code: number;
-  stdout: string;
-  stderr: string;
-}
-
-function admin(databaseUrl: string, args: string[]): Promise<Run> {
-  return new Promise((resolve) => {
-    execFile(
-      process.execPath,
-      ["--import", "tsx", "scripts/admin.ts", ...args],
-      { cwd: ROOT, env: { ...process.env, DATABASE_URL: databaseUrl, DATABASE_AUTH_TOKEN: "", NODE_ID: "cli-node" } },
-      (error, stdout, stderr) => resolve({ code: error ? Number(error.code) : 0, stdout, stderr }),
-    );
-  });
-}
 
 /** Invented records in documentation space (RFC 5737): `perWindow` in each 5-minute window of `hours` hours from T0. */
 function records(hours: number, perWindow: number): FlowRecord[] {
@@ -60,7 +41,7 @@ describe("npm run admin -- retention run", () => {
   let dir: string;
   let url: string;
   let db: Db;
-  const run = (...args: string[]) => admin(url, args);
+  const run = (...args: string[]) => admin(url, args, { NODE_ID: "cli-node" });
   const windowsOf = async (slug: string) => {
     const tenant = (await findTenantBySlug(db, slug))!;
     const found = await db.$client.execute({

@@ -1,7 +1,7 @@
-import { Form, Link, useNavigation, useSearchParams } from "react-router";
+import { Link, useNavigation, useSearchParams } from "react-router";
 import type { MergeListing } from "~/merges/answer";
 import { defaultSliceState, sliceSearch } from "~/slice/query-state";
-import { Button } from "../ui";
+import { ConfirmRow } from "../ui";
 import { count, utcMinute } from "./format";
 
 /** The tenant's merges with their provenance, newest first; Delete asks once more before it acts. */
@@ -70,23 +70,15 @@ function MergeRows({ merge: m, tenantSlug, confirm, deleting }: { merge: MergeLi
         </td>
       </tr>
       {confirm ? (
-        <tr className="border-b border-river-800 bg-red-950/30">
-          <td colSpan={11} className="px-3 py-3">
-            <Form method="post" action={`/t/${tenantSlug}/merge`} preventScrollReset className="flex flex-wrap items-center gap-3">
-              <input type="hidden" name="intent" value="delete" />
-              <input type="hidden" name="name" value={m.name} />
-              <p className="text-sm text-red-100">
-                {`Delete the merge ${m.name} and its ${count(m.windows)} merged windows? Its inputs (${m.inputs.join(", ")}) are not touched; questions naming ${m.name} will find nothing.`}
-              </p>
-              <Button tone="danger" type="submit" disabled={deleting} autoFocus>
-                {deleting ? "Deleting…" : "Delete merge"}
-              </Button>
-              <Link to="." preventScrollReset className="text-sm text-river-200 underline-offset-4 hover:underline">
-                Cancel
-              </Link>
-            </Form>
-          </td>
-        </tr>
+        <ConfirmRow
+          colSpan={11}
+          action={`/t/${tenantSlug}/merge`}
+          fields={{ intent: "delete", name: m.name }}
+          message={`Delete the merge ${m.name} and its ${count(m.windows)} merged windows? Its inputs (${m.inputs.join(", ")}) are not touched; questions naming ${m.name} will find nothing.`}
+          label="Delete merge"
+          busyLabel="Deleting…"
+          busy={deleting}
+        />
       ) : null}
     </>
   );
