@@ -207,6 +207,8 @@ export const ingestBatches = sqliteTable(
     recordCount: integer("record_count").notNull(),
     // Sum of the batch's byte counters, decimal text for the same reason as reservoirs.bytes.
     bytes: text("bytes").notNull(),
+    /** How the batch arrived (INGEST_SOURCES): a JSON body, an IPFIX file, or a listener's flush. */
+    source: text("source").notNull().default("json"),
     response: text("response").notNull(),
   },
   (t) => [
@@ -309,3 +311,87 @@ export type User = typeof users.$inferSelect;
 export type Membership = typeof memberships.$inferSelect;
 export type Invite = typeof invites.$inferSelect;
 export type AuditEntry = typeof auditLog.$inferSelect;
+
+/** Where an ingest batch came from (shown per collector on Intake). */
+export const INGEST_SOURCES = ["json", "ipfix-file", "ipfix-udp", "ipfix-tcp", "netflow9-udp"] as const;
+export type IngestSource = (typeof INGEST_SOURCES)[number];
+
+/**
+ * An admin's claim of an exporter (RFC 7011 term: the device or probe that sends IPFIX or
+ * NetFlow v9) for one collector of the tenant: messages whose source address lies in
+ * [first, last] (a CIDR, IPv4-mapped 16-byte values as everywhere) and, when `domainId` is
+ * set, whose Observation Domain ID (v9: source id) is that one, feed the collector. The most
+ * specific claim wins (longest prefix, then a claim with a domain over one without); claims of
+ * two tenants never overlap.
+ */
+export const exporterClaims = sqliteTable(
+  "exporter_claims",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    tenantId: integer("tenant_id")
+      .notNull()
+      .references(() => tenants.id, { onDelete: "cascade" }),
+    collectorId: integer("collector_id")
+      .notNull()
+      .references(() => collectors.id, { onDelete: "cascade" }),
+    /** The CIDR as normalised text, e.g. 192.0.2.1/32 or 2001:db8::/48. */
+    cidr: text("cidr").notNull(),
+    first: blob("first", { mode: "buffer" }).notNull(),
+    last: blob("last", { mode: "buffer" }).notNull(),
+    /** Prefix length on the 128-bit (IPv4-mapped) scale, for "most specific wins". */
+    prefixLength: integer("prefix_length").notNull(),
+    /** Observation Domain ID (IPFIX) or source id (NetFlow v9); null claims every domain. */
+    domainId: integer("domain_id"),
+    createdBy: text("created_by").notNull(),
+    createdAt: integer("created_at").notNull().$defaultFn(() => Date.now()),
+  },
+  (t) => [index("exporter_claims_tenant_idx").on(t.tenantId), index("exporter_claims_first_idx").on(t.first)],
+);
+
+/**
+ * What the listeners have seen of each exporter (source address, observation domain,
+ * transport), claimed or not: counters since first seen and the templates in use, written
+ * by the collection service every few seconds. Deployment-wide: which tenant an exporter
+ * feeds is decided by the claims, when it is read.
+ */
+export const exporters = sqliteTable(
+  "exporters",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    /** The exporter's source address as text (RFC 5952 for IPv6, dotted for IPv4). */
+    address: text("address").notNull(),
+    /** Observation Domain ID / NetFlow v9 source id; -1 for messages too short to carry one. */
+    domainId: integer("domain_id").notNull(),
+    /** "ipfix-udp", "ipfix-tcp" or "netflow9-udp". */
+    transport: text("transport").notNull(),
+    firstSeenAt: integer("first_seen_at").notNull(),
+    lastSeenAt: integer("last_seen_at").notNull(),
+    messages: integer("messages").notNull().default(0),
+    /** Flow records decoded (each direction of a biflow counts once). */
+    records: integer("records").notNull().default(0),
+    /** Records lost in transport per the sequence numbers (IPFIX: data records; v9: export packets, see lostUnit). */
+    lost: integer("lost").notNull().default(0),
+    lostUnit: text("lost_unit").notNull().default("records"),
+    /** Data records held or dropped for want of a template. */
+    waiting: integer("waiting").notNull().default(0),
+    /** Messages dropped as malformed; the last reason in lastError. */
+    malformed: integer("malformed").notNull().default(0),
+    /** Data records without addresses, protocol or positive counters. */
+    unusable: integer("unusable").notNull().default(0),
+    /** Messages dropped because no claim matched (counted while unclaimed). */
+    unclaimedMessages: integer("unclaimed_messages").notNull().default(0),
+    /** Records per second over the last interval written. */
+    recordsPerSecond: real("records_per_second").notNull().default(0),
+    /** Packet sampling interval announced in options records (counters are scaled by it), null when none. */
+    samplingInterval: real("sampling_interval"),
+    /** JSON: the templates in use, [{ id, options, fields: [name…], refreshedAt }]. */
+    templates: text("templates").notNull().default("[]"),
+    /** JSON: enterprise-specific elements skipped, [{ enterprise, id, count }]. */
+    enterpriseElements: text("enterprise_elements").notNull().default("[]"),
+    lastError: text("last_error"),
+  },
+  (t) => [unique("exporters_key_unique").on(t.address, t.domainId, t.transport)],
+);
+
+export type ExporterClaim = typeof exporterClaims.$inferSelect;
+export type ExporterRow = typeof exporters.$inferSelect;
