@@ -27,6 +27,7 @@ CREATE TABLE `exporters` (
 	`lost` integer DEFAULT 0 NOT NULL,
 	`lost_unit` text DEFAULT 'records' NOT NULL,
 	`waiting` integer DEFAULT 0 NOT NULL,
+	`dropped_waiting` integer DEFAULT 0 NOT NULL,
 	`malformed` integer DEFAULT 0 NOT NULL,
 	`unusable` integer DEFAULT 0 NOT NULL,
 	`unclaimed_messages` integer DEFAULT 0 NOT NULL,
