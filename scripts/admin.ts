@@ -1,4 +1,4 @@
-// `npm run admin -- <command>`: creates tenants and API keys from a shell, for bootstrapping
+// `npm run admin -- <command>`: creates tenants, API keys and exporter claims from a shell, for bootstrapping
 // a deployment and for scripts. Input errors print one line on stderr and exit 2, so a
 // script can tell "you asked for something wrong" (2) from "something broke" (1).
 import { parseArgs, type ParseArgsConfig } from "node:util";
@@ -10,6 +10,16 @@ import { runMigrations } from "~/db/migrate.server";
 import { apiKeys, collectors, tenants } from "~/db/schema.server";
 import { recordAudit } from "~/audit.server";
 import { emailSchema, ensureUserByEmail, roleSchema, setMembership } from "~/auth/users.server";
+import {
+  claimCidrSchema,
+  claimExporter,
+  claimRefusal,
+  describeClaim,
+  domainIdSchema,
+  listClaims,
+  listExportersForTenant,
+  releaseExporter,
+} from "~/exporters/claims.server";
 import { loadEnv } from "~/env.server";
 import { runRetention, type TenantRetentionReport } from "~/retention/rollup.server";
 import { collectorNameSchema, createTenant, ensureCollector, findTenantBySlug, listTenants, MergedCollectorError, newTenantSchema } from "~/tenants.server";
@@ -26,6 +36,16 @@ Commands:
                        alone on the last line of stdout; only its SHA-256 is stored.
   key list <tenant>
   key revoke <prefix>  The prefix is the first part of a key, e.g. weir_1a2b3c4d.
+  exporter claim <tenant> <collector> <address-or-cidr> [--domain N]
+                       IPFIX / NetFlow v9 messages from that address (or any address
+                       in the CIDR) feed the collector, created when it is new; with
+                       --domain, only those of that observation domain (NetFlow v9:
+                       source id). The most specific claim wins; claims of two
+                       tenants may not overlap.
+  exporter list <tenant>
+                       The tenant's claims and the exporters seen for them.
+  exporter release <tenant> <address-or-cidr> [--domain N]
+                       Its messages are dropped and counted as unclaimed again.
   user grant <email> <tenant> <viewer|engineer|admin>
                        Gives a person a role in a tenant (bootstraps the first admin);
                        they sign in to the console with the GitHub account whose
@@ -42,8 +62,9 @@ Defaults: --sample-size 1024, --window-seconds 300 (one of 60, 300, 900, 3600),
 The database is DATABASE_URL (default file:./data/weir.db), migrated first.
 Exit status: 0 done, 2 bad command or input, 1 anything else.
 
-Example:
-  KEY=$(npm run -s admin -- key create riverline pop-north | tail -1)`;
+Examples:
+  KEY=$(npm run -s admin -- key create riverline pop-north | tail -1)
+  npm run admin -- exporter claim riverline pop-north 192.0.2.1 --domain 0`;
 
 /** A mistake in what was asked: one line on stderr, exit 2. */
 class UsageError extends Error {}
@@ -74,6 +95,9 @@ const COMMANDS: Record<string, Command> = {
   "key create": { args: ["tenant", "collector"], options: { scope: { type: "string" } }, run: keyCreate },
   "key list": { args: ["tenant"], options: {}, run: keyList },
   "key revoke": { args: ["prefix"], options: {}, run: keyRevoke },
+  "exporter claim": { args: ["tenant", "collector", "address-or-cidr"], options: { domain: { type: "string" } }, run: exporterClaim },
+  "exporter list": { args: ["tenant"], options: {}, run: exporterList },
+  "exporter release": { args: ["tenant", "address-or-cidr"], options: { domain: { type: "string" } }, run: exporterRelease },
   "user grant": { args: ["email", "tenant", "role"], options: {}, run: userGrant },
   "retention run": { args: [], options: { tenant: { type: "string" }, now: { type: "string" } }, run: retentionRun },
 };
@@ -234,6 +258,93 @@ async function keyRevoke(db: Db, [prefix]: string[]): Promise<void> {
     throw new UsageError(`key ${prefix} (${key.tenant}/${key.collector}) is already revoked`);
   }
   console.log(`Revoked key ${prefix} (${key.tenant}/${key.collector}); requests with it now answer 401.`);
+}
+
+// ---- exporters ---------------------------------------------------------------------------
+
+const CLI_ACTOR = { id: null, label: "admin CLI" };
+
+/** --domain as given, checked: undefined when absent. */
+function domainOption(values: Values): number | null | undefined {
+  if (values.domain === undefined) return undefined;
+  const parsed = domainIdSchema.safeParse(values.domain);
+  if (!parsed.success) throw new UsageError(`--domain ${parsed.error.issues[0].message}, got '${String(values.domain)}'`);
+  if (parsed.data === null) throw new UsageError("--domain needs a number; leave the option out to mean every domain");
+  return parsed.data;
+}
+
+function cidrArgument(text: string): string {
+  const parsed = claimCidrSchema.safeParse(text);
+  if (!parsed.success) throw new UsageError(`<address-or-cidr>: ${parsed.error.issues[0].message}`);
+  return parsed.data.cidr;
+}
+
+/** A refused claim or release is a mistake in what was asked (exit 2); anything else is not. */
+async function refusedAsUsage<T>(work: Promise<T>): Promise<T> {
+  try {
+    return await work;
+  } catch (error) {
+    const refusal = claimRefusal(error);
+    if (refusal) throw new UsageError(refusal.message);
+    throw error;
+  }
+}
+
+async function exporterClaim(db: Db, [slug, collectorName, text]: string[], values: Values): Promise<void> {
+  const name = collectorNameSchema.safeParse(collectorName);
+  if (!name.success) throw new UsageError(`<collector>: ${name.error.issues[0].message}`);
+  const cidr = cidrArgument(text);
+  const domainId = domainOption(values) ?? null;
+  const tenant = await requireTenant(db, slug);
+  const claim = await refusedAsUsage(claimExporter(db, { tenantId: tenant.id, collector: collectorName, cidr, domainId, actor: CLI_ACTOR }));
+  console.log(
+    `Claimed ${describeClaim(claim.cidr, claim.domainId)} for ${tenant.slug}/${claim.collector}${claim.newCollector ? " (new collector)" : ""}. ` +
+      "A running server applies it within a few seconds.",
+  );
+}
+
+async function exporterList(db: Db, [slug]: string[]): Promise<void> {
+  const tenant = await requireTenant(db, slug);
+  const [claims, seen] = await Promise.all([listClaims(db, tenant.id), listExportersForTenant(db, tenant.id)]);
+  if (claims.length === 0) {
+    console.log(`No exporter claims for ${tenant.slug}. Claim one with: npm run admin -- exporter claim ${tenant.slug} <collector> <address-or-cidr>`);
+    return;
+  }
+  printTable(
+    ["CIDR", "DOMAIN", "COLLECTOR", "CLAIMED BY", "CLAIMED"],
+    claims.map((c) => [c.cidr, c.domainId === null ? "every" : String(c.domainId), c.collector, c.createdBy, formatTime(c.createdAt)]),
+  );
+  console.log("");
+  if (seen.length === 0) {
+    console.log("No exporter has sent to these claims yet.");
+    return;
+  }
+  printTable(
+    ["EXPORTER", "DOMAIN", "TRANSPORT", "COLLECTOR", "CLAIM", "MESSAGES", "RECORDS", "LOST", "MALFORMED", "LAST SEEN"],
+    seen.map((e) => [
+      e.address,
+      e.domainId < 0 ? "none" : String(e.domainId),
+      e.transport,
+      e.collector,
+      e.claim.cidr,
+      String(e.messages),
+      String(e.records),
+      `${e.lost} ${e.lostUnit}`,
+      String(e.malformed),
+      formatTime(e.lastSeenAt),
+    ]),
+  );
+}
+
+async function exporterRelease(db: Db, [slug, text]: string[], values: Values): Promise<void> {
+  const cidr = cidrArgument(text);
+  const domainId = domainOption(values);
+  const tenant = await requireTenant(db, slug);
+  const released = await refusedAsUsage(releaseExporter(db, { tenantId: tenant.id, cidr, domainId, actor: CLI_ACTOR }));
+  console.log(
+    `Released ${describeClaim(released.cidr, released.domainId)} of ${tenant.slug}/${released.collector}; ` +
+      "its messages are dropped and counted as unclaimed once a running server applies it (within a few seconds).",
+  );
 }
 
 // ---- people ------------------------------------------------------------------------------

@@ -7,6 +7,7 @@ import type { TemplateSummary } from "~/ipfix/types";
 import { parseAddress } from "~/net/address";
 import { collectorNameSchema, ensureCollector, MergedCollectorError } from "~/tenants.server";
 import { ClaimIndex, claimRange, MAX_DOMAIN_ID, type ClaimRange } from "./claim-index";
+import { claimDomainLabel } from "./format";
 
 /**
  * Exporter claims: which collector of which tenant the IPFIX / NetFlow v9 messages of an
@@ -98,7 +99,7 @@ export function claimRefusal(error: unknown): { code: ClaimErrorCode; message: s
 
 /** "192.0.2.1/32, domain 5" or "192.0.2.0/24, every domain": how a claim is named in messages and the Ledger. */
 export function describeClaim(cidr: string, domainId: number | null): string {
-  return `${cidr}, ${domainId === null ? "every domain" : `domain ${domainId}`}`;
+  return `${cidr}, ${claimDomainLabel(domainId)}`;
 }
 
 /** The first problem of a parse as a ClaimError naming its field (`field` when the schema was a single field's). */
@@ -106,8 +107,9 @@ function invalid(error: z.ZodError, only?: "cidr" | "domain"): ClaimError {
   const issue = error.issues[0];
   const field = only ?? issue.path[0];
   const known = field === "cidr" || field === "domain" || field === "collector" ? field : undefined;
-  const label = known === "cidr" ? "Address or CIDR" : known === "domain" ? "Observation domain" : known === "collector" ? "Collector" : "Input";
-  return new ClaimError("claim-invalid", `${label} ${issue.message}`, 400, known);
+  // The CIDR's messages are whole sentences of their own ("… has host bits set; did you mean …?").
+  const text = known === "cidr" ? `Address or CIDR: ${issue.message}` : `${known === "domain" ? "Observation domain" : known === "collector" ? "Collector" : "Input"} ${issue.message}`;
+  return new ClaimError("claim-invalid", text, 400, known);
 }
 
 // ---- claim and release -------------------------------------------------------------------
@@ -243,7 +245,7 @@ export async function releaseExporter(
     throw new ClaimError("claim-not-found", `This tenant has no claim on ${what}.`, 404, "cidr");
   }
   if (claims.length > 1) {
-    const domains = claims.map((c) => (c.domainId === null ? "every domain" : `domain ${c.domainId}`)).join(", ");
+    const domains = claims.map((c) => claimDomainLabel(c.domainId)).join(", ");
     throw new ClaimError("claim-ambiguous", `${range.cidr} is claimed more than once (${domains}); say which observation domain to release.`, 409, "domain");
   }
   const [claim] = claims;
