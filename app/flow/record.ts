@@ -14,6 +14,7 @@
  * Pure module: no I/O, usable in the browser and on the server.
  */
 import { z } from "zod";
+import { elementByName } from "../ipfix/elements.ts";
 import { formatAddress, parseAddress, parseIPv4, parseIPv6 } from "../net/address.ts";
 
 /** One validated flow record. Addresses are 16 bytes, IPv4 stored IPv4-mapped (RFC 4291 §2.5.5.2). */
@@ -470,6 +471,14 @@ function editDistance(a: string, b: string): number {
 }
 
 function unknownFieldMessage(key: string): string {
+  // A name from the IPFIX registry (the same table the IPFIX decoder reads) is no typo: say
+  // that Weir does not keep it rather than suggest a look-alike.
+  const element = elementByName(key);
+  if (element !== undefined) {
+    return element.enterprise === 0
+      ? `is an IPFIX element (id ${element.id}) that Weir does not store; leave it out`
+      : `is an RFC 5103 reverse element (enterprise ${element.enterprise}, id ${element.id}) that Weir does not store; send the reverse direction as a record of its own`;
+  }
   const lower = key.toLowerCase();
   let best: string | undefined;
   let bestDistance = 3; // suggest only near misses
