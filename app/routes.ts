@@ -24,6 +24,9 @@ export default [
     route("intake", "routes/console.intake.tsx"),
     // JSON for the Intake page's polling (a resource route: no component).
     route("intake-data", "routes/console.intake-data.ts"),
+    route("exporters", "routes/console.exporters.tsx"),
+    // JSON for the Exporters page's polling (a resource route: no component).
+    route("exporters-data", "routes/console.exporters-data.ts"),
     route("merge", "routes/console.merge.tsx"),
     // Sample-file uploads from the Merge page (a resource route: multipart in, JSON out).
     route("merge/upload", "routes/console.merge-upload.ts"),

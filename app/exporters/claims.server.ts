@@ -7,7 +7,9 @@ import type { TemplateSummary } from "~/ipfix/types";
 import { parseAddress } from "~/net/address";
 import { collectorNameSchema, ensureCollector, MergedCollectorError } from "~/tenants.server";
 import { ClaimIndex, claimRange, MAX_DOMAIN_ID, type ClaimRange } from "./claim-index";
-import { claimDomainLabel } from "./format";
+import { claimDomainLabel, describeClaim } from "./format";
+
+export { describeClaim };
 
 /**
  * Exporter claims: which collector of which tenant the IPFIX / NetFlow v9 messages of an
@@ -95,11 +97,6 @@ export function claimRefusal(error: unknown): { code: ClaimErrorCode; message: s
   const { code, message, status, field } = error as Partial<ClaimError>;
   if (typeof code !== "string" || !(CLAIM_ERROR_CODES as readonly string[]).includes(code)) return null;
   return { code: code as ClaimErrorCode, message: String(message), status: status ?? 409, field };
-}
-
-/** "192.0.2.1/32, domain 5" or "192.0.2.0/24, every domain": how a claim is named in messages and the Ledger. */
-export function describeClaim(cidr: string, domainId: number | null): string {
-  return `${cidr}, ${claimDomainLabel(domainId)}`;
 }
 
 /** The first problem of a parse as a ClaimError naming its field (`field` when the schema was a single field's). */

@@ -37,3 +37,13 @@ export function claimDomainLabel(domainId: number | null): string {
 export function observedDomainLabel(domainId: number): string {
   return domainId < 0 ? "none (message too short)" : String(domainId);
 }
+
+/**
+ * How a claim is named in messages, on the console and in the Ledger.
+ *
+ * @example describeClaim("192.0.2.1/32", 5)     // "192.0.2.1/32, domain 5"
+ * @example describeClaim("192.0.2.0/24", null)  // "192.0.2.0/24, every domain"
+ */
+export function describeClaim(cidr: string, domainId: number | null): string {
+  return `${cidr}, ${claimDomainLabel(domainId)}`;
+}

@@ -11,6 +11,7 @@ import type { Route } from "./+types/console";
 export const SECTIONS: { path: string; label: string; role: Role; hint: string }[] = [
   { path: "slice", label: "Slice", role: "viewer", hint: "Estimate any subset of traffic" },
   { path: "intake", label: "Intake", role: "viewer", hint: "Live ingest health per collector" },
+  { path: "exporters", label: "Exporters", role: "viewer", hint: "IPFIX and NetFlow exporters and the collectors they feed" },
   { path: "merge", label: "Merge", role: "engineer", hint: "Merge collectors' samples, upload sample files" },
   { path: "keys", label: "Keys", role: "admin", hint: "API keys for collectors and scripts" },
   { path: "people", label: "People", role: "admin", hint: "Members, roles and invitations" },

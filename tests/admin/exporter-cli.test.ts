@@ -24,7 +24,8 @@ describe("npm run admin -- exporter", () => {
   beforeAll(async () => {
     dir = mkdtempSync(join(tmpdir(), "weir-admin-exporter-"));
     url = `file:${join(dir, "weir.db")}`;
-    for (const slug of ["riverline", "tributary"]) {
+    // "listing" and "empty" belong to one test each, so the tests hold in any order.
+    for (const slug of ["riverline", "tributary", "listing", "empty"]) {
       const made = await run("tenant", "create", slug);
       expect(made, made.stderr).toMatchObject({ code: 0 });
     }
@@ -36,10 +37,10 @@ describe("npm run admin -- exporter", () => {
   });
 
   it("claims an address for a new collector, lists it with the exporters seen, and releases it", async () => {
-    const claimed = await run("exporter", "claim", "riverline", "pop-north", "192.0.2.1", "--domain", "7");
+    const claimed = await run("exporter", "claim", "listing", "pop-north", "192.0.2.1", "--domain", "7");
     expect(claimed.code, claimed.stderr).toBe(0);
-    expect(claimed.stdout).toBe("Claimed 192.0.2.1/32, domain 7 for riverline/pop-north (new collector). A running server applies it within a few seconds.\n");
-    const wide = await run("exporter", "claim", "riverline", "pop-north", "198.51.100.0/24");
+    expect(claimed.stdout).toBe("Claimed 192.0.2.1/32, domain 7 for listing/pop-north (new collector). A running server applies it within a few seconds.\n");
+    const wide = await run("exporter", "claim", "listing", "pop-north", "198.51.100.0/24");
     expect(wide.code, wide.stderr).toBe(0);
     expect(wide.stdout).not.toContain("new collector");
 
@@ -48,7 +49,7 @@ describe("npm run admin -- exporter", () => {
         "('192.0.2.1', 7, 'ipfix-udp', 0, ?, 12, 360, 30, 'records', 1), ('192.0.2.1', 8, 'ipfix-udp', 0, ?, 5, 50, 0, 'records', 0), ('198.51.100.20', 0, 'netflow9-udp', 0, ?, 4, 80, 2, 'packets', 0)",
       [Date.UTC(2026, 0, 5, 10, 30), Date.UTC(2026, 0, 5, 10, 30), Date.UTC(2026, 0, 5, 11, 0)],
     );
-    const listed = await run("exporter", "list", "riverline");
+    const listed = await run("exporter", "list", "listing");
     expect(listed.code, listed.stderr).toBe(0);
     const [claims, seen] = listed.stdout.split("\n\n");
     const claimRows = tableRows(claims);
@@ -65,10 +66,10 @@ describe("npm run admin -- exporter", () => {
       ["198.51.100.20", "0", "netflow9-udp", "pop-north", "198.51.100.0/24", "4", "80", "2 packets", "0", "2026-01-05 11:00Z"],
     ]);
 
-    const released = await run("exporter", "release", "riverline", "192.0.2.1");
+    const released = await run("exporter", "release", "listing", "192.0.2.1");
     expect(released.code, released.stderr).toBe(0);
-    expect(released.stdout).toMatch(/^Released 192\.0\.2\.1\/32, domain 7 of riverline\/pop-north; /);
-    const ledger = await sql("SELECT actor, action, target FROM audit_log WHERE action LIKE 'exporter.%' ORDER BY id");
+    expect(released.stdout).toMatch(/^Released 192\.0\.2\.1\/32, domain 7 of listing\/pop-north; /);
+    const ledger = await sql("SELECT actor, action, target FROM audit_log a JOIN tenants t ON t.id = a.tenant_id WHERE t.slug = 'listing' AND action LIKE 'exporter.%' ORDER BY a.id");
     expect(ledger.map((r) => [r.actor, r.action, r.target])).toEqual([
       ["admin CLI", "exporter.claim", "192.0.2.1/32, domain 7"],
       ["admin CLI", "exporter.claim", "198.51.100.0/24, every domain"],
@@ -77,8 +78,8 @@ describe("npm run admin -- exporter", () => {
   });
 
   it("says how to claim when a tenant has no claims", async () => {
-    const listed = await run("exporter", "list", "tributary");
-    expect(listed).toMatchObject({ code: 0, stdout: "No exporter claims for tributary. Claim one with: npm run admin -- exporter claim tributary <collector> <address-or-cidr>\n" });
+    const listed = await run("exporter", "list", "empty");
+    expect(listed).toMatchObject({ code: 0, stdout: "No exporter claims for empty. Claim one with: npm run admin -- exporter claim empty <collector> <address-or-cidr>\n" });
   });
 
   it("refuses another tenant's overlapping claim with exit 2, naming the range but not the tenant", async () => {

@@ -61,6 +61,8 @@ describe("exporter claims", () => {
     rmSync(dir, { recursive: true, force: true });
   });
   beforeEach(async () => {
+    // Collectors too (their claims go with them): each test starts from tenants alone.
+    await sql("DELETE FROM collectors");
     await sql("DELETE FROM exporter_claims");
     await sql("DELETE FROM exporters");
     await sql("DELETE FROM audit_log");
