@@ -1,6 +1,7 @@
 import type { InValue } from "@libsql/client";
 import { requireMember } from "~/auth/guards.server";
 import type { Db } from "~/db/client.server";
+import type { IngestSource } from "~/db/schema.server";
 import { windowStartOf } from "~/ingest/window";
 import { counterJson, type Counter } from "~/query/answer";
 import type { Route } from "./+types/console.intake-data";
@@ -11,6 +12,8 @@ const RATE_SECONDS = 60;
 const WINDOWS_SHOWN = 4;
 /** A collector not seen for more than this many windows (or never) is quiet. */
 const QUIET_AFTER_WINDOWS = 2;
+/** How far back "where records come from" looks. */
+const SOURCES_HOURS = 24;
 
 export interface IntakeWindow {
   start: number;
@@ -29,6 +32,22 @@ export interface OpenReservoir {
   records: number;
 }
 
+/** What arrived over one way in (ingest_batches.source) in the last SOURCES_HOURS. */
+export interface SourceUse {
+  batches: number;
+  records: number;
+}
+
+/** Where a collector's records come from: what arrived over each way in, and what can feed it. */
+export interface CollectorSources {
+  /** Per way in, over the last `IntakeSnapshot.sourcesHours`; absent when none arrived that way. */
+  received: Partial<Record<IngestSource, SourceUse>>;
+  /** Keys that may post records (ingest scope, not revoked). */
+  activeKeys: number;
+  /** Exporter claims that feed the collector. */
+  exporterClaims: number;
+}
+
 export interface IntakeCollector {
   name: string;
   lastSeenAt: number | null;
@@ -41,6 +60,7 @@ export interface IntakeCollector {
   /** Oldest first, the open window last; aligned with `IntakeSnapshot.windows`. */
   windows: IntakeWindow[];
   open: OpenReservoir[];
+  sources: CollectorSources;
 }
 
 export interface IntakeSnapshot {
@@ -52,6 +72,8 @@ export interface IntakeSnapshot {
   rateSeconds: number;
   /** Windows without a batch after which a collector counts as quiet. */
   quietAfterWindows: number;
+  /** Hours over which `CollectorSources.received` counts batches. */
+  sourcesHours: number;
   /** Window starts shown, oldest first; the last is the open window. */
   windows: number[];
   collectors: IntakeCollector[];
@@ -68,7 +90,9 @@ export async function loader({ request, context, params }: Route.LoaderArgs) {
  * Ingest health of one tenant at `now`. Every statement is confined to the tenant's id.
  * Records per second come from the batches received in the last minute; counters per window
  * are the reservoirs' exact ones summed over nodes; fill and τ are those of the open window
- * (the current window of the tenant's window length).
+ * (the current window of the tenant's window length). Where records come from counts the
+ * batches of the last day per way in (JSON over HTTP, IPFIX files, the listeners), beside the
+ * keys and exporter claims that can feed each collector.
  */
 async function intakeSnapshot(
   db: Db,
@@ -81,7 +105,7 @@ async function intakeSnapshot(
   const client = db.$client;
   const run = (sql: string, args: InValue[]) => client.execute({ sql, args });
 
-  const [collectorRows, rateRows, reservoirRows] = await Promise.all([
+  const [collectorRows, rateRows, reservoirRows, sourceRows, keyRows, claimRows] = await Promise.all([
     // Merged collectors receive no records; the Merge page lists them.
     run(
       "SELECT c.id, c.name, c.last_seen_at, EXISTS (SELECT 1 FROM reservoirs r WHERE r.collector_id = c.id AND r.records > 0) " +
@@ -100,7 +124,25 @@ async function intakeSnapshot(
         "ORDER BY r.window_start, r.node",
       [open, tenant.id, tenant.windowSeconds, windows[0], open],
     ),
+    run(
+      "SELECT collector_id, source, COUNT(*), SUM(record_count) FROM ingest_batches WHERE tenant_id = ? AND received_at > ? AND received_at <= ? GROUP BY collector_id, source",
+      [tenant.id, now - SOURCES_HOURS * 3600_000, now],
+    ),
+    // Keys that can feed records: a query-only key reads estimates and sends nothing.
+    run("SELECT collector_id, COUNT(*) FROM api_keys WHERE tenant_id = ? AND revoked_at IS NULL AND scopes IN ('ingest', 'ingest,query') GROUP BY collector_id", [tenant.id]),
+    run("SELECT collector_id, COUNT(*) FROM exporter_claims WHERE tenant_id = ? GROUP BY collector_id", [tenant.id]),
   ]);
+
+  const received = new Map<number, Partial<Record<IngestSource, SourceUse>>>();
+  for (const row of sourceRows.rows) {
+    const id = Number(row[0]);
+    const perSource = received.get(id) ?? {};
+    perSource[String(row[1]) as IngestSource] = { batches: Number(row[2]), records: Number(row[3]) };
+    received.set(id, perSource);
+  }
+  const countsOf = (rows: typeof keyRows.rows) => new Map(rows.map((row) => [Number(row[0]), Number(row[1])]));
+  const activeKeys = countsOf(keyRows.rows);
+  const exporterClaims = countsOf(claimRows.rows);
 
   const rates = new Map<number, { records: number; batches: number }>();
   for (const row of rateRows.rows) rates.set(Number(row[0]), { records: Number(row[1]), batches: Number(row[2]) });
@@ -141,6 +183,7 @@ async function intakeSnapshot(
         return { start, records: sums?.records ?? 0, bytes: counterJson(sums?.bytes ?? 0n), packets: counterJson(sums?.packets ?? 0n) };
       }),
       open: entry?.open ?? [],
+      sources: { received: received.get(id) ?? {}, activeKeys: activeKeys.get(id) ?? 0, exporterClaims: exporterClaims.get(id) ?? 0 },
     };
   });
 
@@ -151,6 +194,7 @@ async function intakeSnapshot(
     weightAttribute: tenant.weightAttribute,
     rateSeconds: RATE_SECONDS,
     quietAfterWindows: QUIET_AFTER_WINDOWS,
+    sourcesHours: SOURCES_HOURS,
     windows,
     collectors,
   };

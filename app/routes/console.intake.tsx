@@ -32,7 +32,7 @@ export default function Intake() {
     <>
       <PageHeader
         title="Intake"
-        lead={<>Live ingest health of {tenant.name}, per collector: how fast records arrive, the exact bytes of recent windows, and how full each open reservoir is. Refreshed every {REFRESH_MS / 1000} s; times in UTC.</>}
+        lead={<>Live ingest health of {tenant.name}, per collector: where its records come from, how fast they arrive, the exact bytes of recent windows, and how full each open reservoir is. Refreshed every {REFRESH_MS / 1000} s; times in UTC.</>}
       />
       <div className="flex flex-col gap-6">
         {error ? <ErrorState title="Could not refresh Intake" message={`${error.message}${data ? " The figures below are from the last successful refresh." : ""}`} /> : null}
@@ -41,8 +41,9 @@ export default function Intake() {
             data.collectors.length === 0 ? (
               <EmptyState title="No collectors yet">
                 <p>
-                  A collector appears here once a tenant admin creates an API key for it (Keys). It then posts flow records to{" "}
-                  <code className="font-mono text-river-100">/api/v1/flows</code> with that key, and this page shows them arriving.
+                  A collector appears here once a tenant admin creates an API key for it (Keys) or claims an exporter for it (Exporters). It then posts flow records to{" "}
+                  <code className="font-mono text-river-100">/api/v1/flows</code> with that key, or its exporters send IPFIX or NetFlow v9 to the listeners, and this page
+                  shows them arriving.
                 </p>
               </EmptyState>
             ) : (

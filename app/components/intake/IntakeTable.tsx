@@ -1,4 +1,4 @@
-import type { IntakeCollector, IntakeSnapshot, OpenReservoir } from "~/routes/console.intake-data";
+import type { CollectorSources, IntakeCollector, IntakeSnapshot, OpenReservoir, SourceUse } from "~/routes/console.intake-data";
 import { counterValue, exactMetric, formatBytes, formatMetric, formatUtc } from "~/slice/format";
 
 const timeOfDay = (ms: number) => new Date(ms).toISOString().slice(11, 16);
@@ -106,6 +106,8 @@ export function IntakeTable({ snapshot }: { snapshot: IntakeSnapshot }) {
         Quiet: no batch for more than {snapshot.quietAfterWindows} windows ({windowLength(snapshot.quietAfterWindows * snapshot.windowSeconds)}), or never (a collector fed only by uploaded
         sample files shows "imports only" instead).
         Records per second count the batches received; bytes per window count each record in the window of its start time, late ones included.
+        Under each name, where its records come from: API keys (JSON over HTTP), claimed exporters (IPFIX and NetFlow v9 listeners) and IPFIX files; bright when
+        records arrived that way in the last {snapshot.sourcesHours} h.
       </p>
     </div>
   );
@@ -124,6 +126,7 @@ function CollectorRow({ c, snapshot }: { c: IntakeCollector; snapshot: IntakeSna
             quiet
           </span>
         ) : null}
+        <Sources sources={c.sources} hours={snapshot.sourcesHours} />
       </th>
       <td
         className="py-2 pr-3 text-right font-mono text-river-100"
@@ -174,5 +177,57 @@ function Fill({ r, showNode }: { r: OpenReservoir; showNode: boolean }) {
       </span>
       {showNode ? <span className="text-xs text-river-300">{r.node}</span> : null}
     </div>
+  );
+}
+
+const plural = (n: number, one: string, many = `${one}s`) => `${n.toLocaleString("en-US")} ${n === 1 ? one : many}`;
+const used = (use: SourceUse | undefined) => (use ? `${plural(use.records, "record")} in ${plural(use.batches, "batch", "batches")}` : "nothing");
+
+/**
+ * Where a collector's records come from, compactly: "keys 2 · exporters 1 · files". A way in
+ * is bright when records arrived over it in the last `hours`, dim when it could feed the
+ * collector (an active key, a claim) but did not.
+ */
+function Sources({ sources, hours }: { sources: CollectorSources; hours: number }) {
+  const { received, activeKeys, exporterClaims } = sources;
+  const listeners = [received["ipfix-udp"], received["ipfix-tcp"], received["netflow9-udp"]].filter((u): u is SourceUse => u !== undefined);
+  const fromListeners = listeners.length === 0 ? undefined : listeners.reduce((a, b) => ({ batches: a.batches + b.batches, records: a.records + b.records }));
+  const parts: { label: string; active: boolean; title: string }[] = [];
+  if (activeKeys > 0 || received.json) {
+    parts.push({
+      label: `keys ${activeKeys}`,
+      active: received.json !== undefined,
+      title: `${plural(activeKeys, "active ingest key")}; JSON over HTTP in the last ${hours} h: ${used(received.json)}`,
+    });
+  }
+  if (exporterClaims > 0 || fromListeners) {
+    const perTransport = (["ipfix-udp", "ipfix-tcp", "netflow9-udp"] as const)
+      .filter((t) => received[t])
+      .map((t) => `${t === "netflow9-udp" ? "NetFlow v9 over UDP" : t === "ipfix-tcp" ? "IPFIX over TCP" : "IPFIX over UDP"}: ${used(received[t])}`);
+    parts.push({
+      label: `exporters ${exporterClaims}`,
+      active: fromListeners !== undefined,
+      title: `${plural(exporterClaims, "exporter claim")}; from the listeners in the last ${hours} h: ${perTransport.length > 0 ? perTransport.join("; ") : "nothing"}`,
+    });
+  }
+  if (received["ipfix-file"]) {
+    parts.push({ label: "files", active: true, title: `IPFIX files posted in the last ${hours} h: ${used(received["ipfix-file"])}` });
+  }
+  if (parts.length === 0) {
+    return (
+      <span className="block text-xs text-river-400" title="No active ingest key, no exporter claim, and nothing received in the last day">
+        no key or exporter
+      </span>
+    );
+  }
+  return (
+    <span className="block text-xs" data-sources>
+      {parts.map((p, i) => (
+        <span key={p.label} title={p.title}>
+          {i > 0 ? <span className="text-river-500"> · </span> : null}
+          <span className={p.active ? "text-river-100" : "text-river-400"}>{p.label}</span>
+        </span>
+      ))}
+    </span>
   );
 }
