@@ -5,8 +5,8 @@
  * (RFC 7011 §3.1, options Data Records included); a NetFlow v9 one counts export packets
  * (RFC 3954 §5.1). Real exporters deviate — some count the current message's records too,
  * some count messages — so each exporter's convention is learnt from consecutive messages:
- * a message whose number one of the conventions explains exactly is never loss, and loss is
- * counted only under the convention the exporter has kept to. A number that goes backwards
+ * a message whose number the convention it has kept to explains is never loss, and loss is
+ * counted under that convention. A number that goes backwards
  * (an exporter restart: back near zero, or NetFlow v9 sysUpTime lower than before) starts
  * over without counting loss, unless it fills a gap reported earlier (a late, reordered UDP
  * datagram), which is then no longer counted as lost. A message whose record count is not
@@ -23,8 +23,6 @@ export const CURRENT_RECORDS = 1;
 export const PACKETS = 2;
 
 const CONVENTIONS = [PREVIOUS_RECORDS, CURRENT_RECORDS, PACKETS] as const;
-/** Consecutive exact matches before another convention replaces the one in use. */
-const SWITCH_AFTER = 3;
 /**
  * A forward jump larger than this is taken as a restart, not loss: a 2^32 counter that wrapped
  * or an exporter that restarted from an arbitrary number cannot be told from a gap of billions.
@@ -92,19 +90,22 @@ export class SequenceTracker {
       this.take(seq, count, uptime, restarted);
       return none;
     }
-    // Where each convention expects this message, as the start of the span it covers.
-    const matches = [false, false, false];
+    // Where each convention expects this message, as the start of the span it covers. A
+    // convention excuses a message only while it is credible — it explained the previous message
+    // too — so that a real gap is not excused by another convention matching by coincidence.
+    // With no credible convention (the start, or just after a gap) any match excuses.
     const known = [prevCount >= 0, count >= 0, true];
+    const anyCredible = this.streak.some((n) => n > 0);
+    const excusing: number[] = [];
     for (const c of CONVENTIONS) {
       if (!known[c]) continue;
-      matches[c] = this.spanStart(c, seq, count) === this.spanEnd(c, prevSeq, prevCount);
-      this.streak[c] = matches[c] ? this.streak[c] + 1 : 0;
+      const match = this.spanStart(c, seq, count) === this.spanEnd(c, prevSeq, prevCount);
+      if (match && (!anyCredible || this.streak[c] > 0)) excusing.push(c);
+      this.streak[c] = match ? this.streak[c] + 1 : 0;
     }
-    if (matches.some(Boolean)) {
+    if (excusing.length > 0) {
       const current = this.convention;
-      if (current === null || (!matches[current] && CONVENTIONS.some((c) => matches[c] && this.streak[c] >= SWITCH_AFTER))) {
-        this.convention = CONVENTIONS.find((c) => matches[c] && (current === null || this.streak[c] >= SWITCH_AFTER)) ?? current;
-      }
+      if (current === null || !excusing.includes(current)) this.convention = excusing.includes(this.fallback) ? this.fallback : excusing[0];
       this.take(seq, count, uptime, false);
       return none;
     }
