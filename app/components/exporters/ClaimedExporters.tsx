@@ -141,7 +141,7 @@ function ExporterRow({ e, now }: { e: ClaimedExporter; now: number }) {
           <span className="text-river-300">none announced</span>
         ) : (
           <span
-            className="rounded border border-sand-400/70 px-1.5 py-px font-mono text-xs text-sand-200"
+            className="rounded border border-sand-400/70 px-1.5 py-px font-mono text-xs whitespace-nowrap text-sand-200"
             title={`The exporter announced packet sampling of 1 in ${count(e.samplingInterval)}: its byte and packet counters are multiplied by ${count(e.samplingInterval)}`}
           >
             counters ×{count(e.samplingInterval)}
