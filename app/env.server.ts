@@ -42,6 +42,23 @@ export const envSchema = z
     // (each tenant's retention settings); 0 turns the timer off (run `npm run admin -- retention run`).
     // In a deployment of several nodes on one database, leave it on for one node only.
     RETENTION_INTERVAL_MINUTES: z.coerce.number().int().min(0).default(60),
+    // Native collection (app/collect): UDP listeners for IPFIX (RFC 7011; 4739 is IANA's port)
+    // and NetFlow v9 (RFC 3954; no IANA port: 2055 is common practice), and a TCP listener for
+    // IPFIX. 0 turns one off. They bind to COLLECT_HOST, which defaults to HOST.
+    IPFIX_UDP_PORT: z.coerce.number().int().min(0).max(65535).default(4739),
+    NETFLOW_UDP_PORT: z.coerce.number().int().min(0).max(65535).default(2055),
+    IPFIX_TCP_PORT: z.coerce.number().int().min(0).max(65535).default(4739),
+    COLLECT_HOST: z.string().min(1).optional(),
+    // Kernel receive buffer asked for each UDP socket; the kernel may grant less (net.core.rmem_max).
+    COLLECT_UDP_RECEIVE_BUFFER_BYTES: z.coerce.number().int().min(65_536).default(33_554_432),
+    // A UDP template not refreshed for this long is forgotten (RFC 7011 §8.4); TCP templates last the connection.
+    IPFIX_TEMPLATE_LIFETIME_SECONDS: z.coerce.number().int().min(1).default(1800),
+    // Records from the listeners are stored in batches: after this many records for one collector,
+    COLLECT_FLUSH_RECORDS: z.coerce.number().int().min(1).max(1_000_000).default(50_000),
+    // or after this many milliseconds, whichever comes first (what a crash can lose; UDP has no acknowledgement).
+    COLLECT_FLUSH_MS: z.coerce.number().int().min(10).max(60_000).default(1000),
+    // Received records held for storage at most (all collectors); beyond, new records are dropped and counted.
+    COLLECT_MAX_BUFFERED_RECORDS: z.coerce.number().int().min(1000).default(1_000_000),
     // Console sign-in. With GITHUB_CLIENT_ID/SECRET set, Weir signs people in through GitHub;
     // without them, outside production, it starts a local fake GitHub (see scripts/fakes).
     GITHUB_CLIENT_ID: z.string().min(1).optional(),

@@ -3,6 +3,7 @@ import { gunzip } from "node:zlib";
 import { ApiError } from "~/auth/api-keys.server";
 import { parseFlowBatch } from "~/flow/record";
 import { readLimitedBody } from "~/http/limited-body.server";
+import { parseIpfixFile, type IpfixFileSummary } from "./ipfix-body";
 import { packFlowRecords, type PackedFlows } from "./kept-codec";
 
 const gunzipAsync = promisify(gunzip);
@@ -15,6 +16,8 @@ export interface BodyLimits {
 }
 
 const JSON_TYPES = new Set(["application/json"]);
+/** RFC 5655 §9 registers application/ipfix for IPFIX files. */
+const IPFIX_TYPE = "application/ipfix";
 const NDJSON_TYPES = new Set(["application/x-ndjson", "application/ndjson", "application/jsonl"]);
 
 /** One entry of an invalid-record list: index of the record in the batch. */
@@ -29,6 +32,8 @@ export interface ParseJob {
   /** Owns its whole ArrayBuffer, so the buffer can be transferred rather than copied. */
   body: Uint8Array<ArrayBuffer>;
   ndjson: boolean;
+  /** An IPFIX file (RFC 5655) rather than JSON. */
+  ipfix?: boolean;
   gzip: boolean;
   limits: BodyLimits;
 }
@@ -39,7 +44,7 @@ export interface ParseJob {
  * the server's and the route bundle's copies of its class.
  */
 export type ParseOutcome =
-  | { ok: true; packed: PackedFlows }
+  | { ok: true; packed: PackedFlows; ipfix?: IpfixFileSummary }
   | { ok: false; status: number; code: string; message: string; extra: Record<string, unknown> };
 
 /** Turns bodies into packed records: the parse-worker pool, or `parseFlowBody` in the calling thread. */
@@ -54,14 +59,19 @@ export interface FlowBodyParser {
  * validates it (see `parseFlowBody`). Throws the ApiError to answer when the batch is
  * refused.
  */
-export async function readFlowBatch(request: Request, limits: BodyLimits, parser: FlowBodyParser): Promise<PackedFlows> {
+export async function readFlowBatch(
+  request: Request,
+  limits: BodyLimits,
+  parser: FlowBodyParser,
+): Promise<{ packed: PackedFlows; ipfix?: IpfixFileSummary }> {
   const type = (request.headers.get("content-type") ?? "").split(";")[0].trim().toLowerCase();
   const ndjson = NDJSON_TYPES.has(type);
-  if (!ndjson && !JSON_TYPES.has(type)) {
+  const ipfix = type === IPFIX_TYPE;
+  if (!ndjson && !ipfix && !JSON_TYPES.has(type)) {
     throw new ApiError(
       415,
       "unsupported_media_type",
-      `Content-Type must be application/json (a JSON array of records) or application/x-ndjson (one record a line)${type ? `, not ${type}` : ""}.`,
+      `Content-Type must be application/json (a JSON array of records), application/x-ndjson (one record a line) or application/ipfix (an IPFIX file, RFC 5655)${type ? `, not ${type}` : ""}.`,
     );
   }
   const encoding = (request.headers.get("content-encoding") ?? "identity").trim().toLowerCase();
@@ -69,9 +79,9 @@ export async function readFlowBatch(request: Request, limits: BodyLimits, parser
     throw new ApiError(415, "unsupported_media_type", `Content-Encoding must be gzip or absent, not ${encoding}.`);
   }
   const body = await readLimitedBody(request, limits.maxBodyBytes, () => tooLarge(limits.maxBodyBytes));
-  const outcome = await parser.parse({ body, ndjson, gzip: encoding === "gzip", limits });
+  const outcome = await parser.parse({ body, ndjson, ipfix, gzip: encoding === "gzip", limits });
   if (!outcome.ok) throw new ApiError(outcome.status, outcome.code, outcome.message, outcome.extra);
-  return outcome.packed;
+  return { packed: outcome.packed, ipfix: outcome.ipfix };
 }
 
 /**
@@ -82,6 +92,10 @@ export async function readFlowBatch(request: Request, limits: BodyLimits, parser
  */
 export async function parseFlowBody(job: ParseJob): Promise<ParseOutcome> {
   try {
+    if (job.ipfix) {
+      const { packed, summary } = parseIpfixFile(await decompress(job), job.limits.maxRecords);
+      return { ok: true, packed, ipfix: summary };
+    }
     const values = await decodeValues(job);
     const parsed = parseFlowBatch(values);
     if (!parsed.ok) throw invalidRecords(parsed.details, parsed.invalidCount);
@@ -92,7 +106,7 @@ export async function parseFlowBody(job: ParseJob): Promise<ParseOutcome> {
   }
 }
 
-async function decodeValues({ body, ndjson, gzip, limits }: ParseJob): Promise<unknown[]> {
+async function decompress({ body, gzip, limits }: ParseJob): Promise<Uint8Array> {
   let bytes: Uint8Array = body;
   if (gzip) {
     try {
@@ -102,6 +116,12 @@ async function decodeValues({ body, ndjson, gzip, limits }: ParseJob): Promise<u
       throw new ApiError(400, "invalid_body", "The body is not valid gzip data.");
     }
   }
+  return bytes;
+}
+
+async function decodeValues(job: ParseJob): Promise<unknown[]> {
+  const { ndjson, limits } = job;
+  const bytes = await decompress(job);
   let text: string;
   try {
     text = new TextDecoder("utf-8", { fatal: true }).decode(bytes);

@@ -1,5 +1,6 @@
 import type { InStatement } from "@libsql/client";
 import type { Db } from "~/db/client.server";
+import type { IngestSource } from "~/db/schema.server";
 import type { FlowRecord } from "~/flow/record";
 import { Reservoir, type Kept } from "~/sampling/reservoir";
 import type { UniformSource } from "~/sampling/uniform";
@@ -34,6 +35,8 @@ export interface IngestBatch {
   records: readonly FlowRecord[] | PackedFlows;
   receivedAt: number;
   idempotencyKey?: string;
+  /** How the batch arrived, for Intake (default "json"). */
+  source?: IngestSource;
 }
 
 export interface WindowAnswer {
@@ -174,7 +177,7 @@ export class ReservoirManager {
 
   private async apply(batch: IngestBatch): Promise<IngestAnswer> {
     const client = this.db.$client;
-    const { tenant, collector, receivedAt, idempotencyKey } = batch;
+    const { tenant, collector, receivedAt, idempotencyKey, source = "json" } = batch;
     await this.sweepIdempotencyKeys(receivedAt);
     if (idempotencyKey !== undefined) {
       const prior = await client.execute({
@@ -261,8 +264,8 @@ export class ReservoirManager {
       const statements = touched.flatMap((live) => this.persistStatements(live, receivedAt));
       statements.push(
         {
-          sql: "INSERT INTO ingest_batches (tenant_id, collector_id, idempotency_key, received_at, record_count, bytes, response) VALUES (?, ?, ?, ?, ?, ?, ?)",
-          args: [tenant.id, collector.id, idempotencyKey ?? null, receivedAt, count, batchBytes.toString(), JSON.stringify(answer)],
+          sql: "INSERT INTO ingest_batches (tenant_id, collector_id, idempotency_key, received_at, record_count, bytes, source, response) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+          args: [tenant.id, collector.id, idempotencyKey ?? null, receivedAt, count, batchBytes.toString(), source, JSON.stringify(answer)],
         },
         { sql: "UPDATE collectors SET last_seen_at = ? WHERE id = ?", args: [receivedAt, collector.id] },
       );

@@ -7,7 +7,7 @@ import type { Route } from "./+types/api.v1.flows";
 const IDEMPOTENCY_KEY = /^[\x21-\x7e]{1,200}$/;
 
 /**
- * POST /api/v1/flows — ingest a batch of flow records (JSON array or NDJSON,
+ * POST /api/v1/flows — ingest a batch of flow records (JSON array, NDJSON or an IPFIX file,
  * optionally gzip). The batch is atomic and the answer is sent only after it is
  * stored; a retry with the same Idempotency-Key is applied once.
  */
@@ -20,16 +20,18 @@ export async function action({ request, context }: Route.ActionArgs) {
     if (idempotencyKey !== undefined && !IDEMPOTENCY_KEY.test(idempotencyKey)) {
       throw new ApiError(400, "invalid_idempotency_key", "Idempotency-Key must be 1–200 printable ASCII characters without spaces.");
     }
-    const records = await readFlowBatch(request, { maxBodyBytes: env.INGEST_MAX_BODY_BYTES, maxRecords: env.INGEST_MAX_RECORDS }, parsePool);
+    const { packed, ipfix } = await readFlowBatch(request, { maxBodyBytes: env.INGEST_MAX_BODY_BYTES, maxRecords: env.INGEST_MAX_RECORDS }, parsePool);
     const answer = await manager.ingest({
       tenant: principal.tenant,
       collector: principal.collector,
-      records,
+      records: packed,
       receivedAt: Date.now(),
       idempotencyKey,
+      source: ipfix ? "ipfix-file" : "json",
     });
     await touchKey(db, principal.keyId);
-    return Response.json(answer, { headers: { "Cache-Control": "no-store" } });
+    // What an IPFIX file held besides its records (unusable ones, sampling, enterprise elements).
+    return Response.json(ipfix && !answer.duplicate ? { ...answer, ipfix } : answer, { headers: { "Cache-Control": "no-store" } });
   } catch (error) {
     return errorResponse(error, logger);
   }

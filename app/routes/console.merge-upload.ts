@@ -3,6 +3,7 @@ import { ApiError } from "~/auth/api-keys.server";
 import { requireMember } from "~/auth/guards.server";
 import { parseSampleFile, SampleFileError } from "~/samples/document";
 import { decodeUtf8, discardBody, importSampleSet, invalidSampleFile, parseImportCollector, readLimitedBody, sampleFileTooLarge } from "~/samples/import.server";
+import { ingestIpfixUpload, isIpfixUpload } from "~/ingest/ipfix-upload.server";
 import { MergedCollectorError } from "~/tenants.server";
 import type { Route } from "./+types/console.merge-upload";
 
@@ -16,16 +17,17 @@ const MULTIPART_OVERHEAD_BYTES = 16 * 1024;
 const uploadFormSchema = z.strictObject(
   {
     collector: z.unknown(),
-    file: z.instanceof(File, { error: "must be a file (a sample file exported by Weir)" }),
+    file: z.instanceof(File, { error: "must be a file (a sample file exported by Weir, or an IPFIX file)" }),
   },
   { error: "must be a form with the fields collector and file" },
 );
 
 /**
- * POST /t/:tenant/merge/upload — the Merge page's sample-file upload (multipart/form-data
- * with `collector` and `file`), for engineers and admins. The same import as
- * POST /api/v1/samples, answering JSON: the import summary, or `{ error: { code, message,
- * details } }` with the same statuses.
+ * POST /t/:tenant/merge/upload — the Merge page's upload (multipart/form-data with `collector`
+ * and `file`), for engineers and admins. A sample file is the same import as
+ * POST /api/v1/samples; an IPFIX file (RFC 5655: named .ipfix, or starting with a version-10
+ * message) is the same batch as POST /api/v1/flows with Content-Type application/ipfix.
+ * Answers JSON: the summary, or `{ error: { code, message, details } }` with the same statuses.
  */
 export async function action({ request, context, params }: Route.ActionArgs) {
   const { user, tenant } = await requireMember(request, context, params.tenant, "engineer").catch(async (refusal: unknown) => {
@@ -38,7 +40,18 @@ export async function action({ request, context, params }: Route.ActionArgs) {
     const form = await readUploadForm(request, maxBytes);
     const collector = parseImportCollector(form.collector, "collector", "invalid_form");
     if (form.file.size > maxBytes) throw sampleFileTooLarge(maxBytes);
-    const set = parseSampleFile(decodeUtf8(new Uint8Array(await form.file.arrayBuffer())));
+    const bytes = new Uint8Array(await form.file.arrayBuffer());
+    if (isIpfixUpload(form.file.name, bytes)) {
+      const summary = await ingestIpfixUpload(
+        { db: context.db, manager: context.manager, parser: context.parsePool, maxBodyBytes: maxBytes },
+        tenant,
+        collector,
+        bytes,
+        { id: user.id, label: user.login ?? user.email },
+      );
+      return Response.json(summary, { headers: NO_STORE });
+    }
+    const set = parseSampleFile(decodeUtf8(bytes));
     const summary = await importSampleSet(
       { db: context.db, manager: context.manager, node: context.env.NODE_ID },
       tenant,
@@ -54,6 +67,10 @@ export async function action({ request, context, params }: Route.ActionArgs) {
       return new ApiError(409, "merged_collector", error.message, { details: [{ path: "collector", message: "names a merged collector" }] }).toResponse(NO_STORE);
     }
     if (error instanceof ApiError) return error.toResponse(NO_STORE);
+    // Matched by name: the pool's class is the host's copy, not this module graph's.
+    if ((error as Error).name === "ParsePoolFull") {
+      return new ApiError(503, "overloaded", "Weir is decoding as many uploads as it can hold; nothing was stored. Try again in a moment.").toResponse({ ...NO_STORE, "Retry-After": "1" });
+    }
     context.logger.error({ err: error }, "sample upload failed");
     return new ApiError(500, "internal_error", "The sample file could not be imported; nothing was stored. The server log has the cause.").toResponse(NO_STORE);
   }

@@ -17,6 +17,7 @@ import type { GitHubConfig } from "../auth/github.server";
 import { createMail, type Mail } from "../mail.server";
 import type { UniformSource } from "../sampling/uniform";
 import { startRetentionTimer, type RetentionTimerOptions } from "../retention/timer.server";
+import { Collection } from "../collect/collection.server";
 
 declare module "react-router" {
   // What every loader and action receives as `context`. Server-wide resources travel this
@@ -30,6 +31,7 @@ declare module "react-router" {
     parsePool: ParsePool;
     github: GitHubConfig;
     mail: Mail;
+    collection: Collection;
   }
 }
 
@@ -49,6 +51,11 @@ export interface StartServerOptions {
   uniform?: UniformSource;
   /** Overrides of the roll-up/retention timer (interval from `env.RETENTION_INTERVAL_MINUTES`, first run after a minute); tests shorten them. */
   retention?: Partial<RetentionTimerOptions>;
+  /**
+   * Overrides of the native-collection listener ports (env IPFIX_UDP_PORT, NETFLOW_UDP_PORT,
+   * IPFIX_TCP_PORT): null turns one off, 0 asks the OS for a free port (tests).
+   */
+  collect?: { ipfixUdpPort?: number | null; netflowUdpPort?: number | null; ipfixTcpPort?: number | null; flushMs?: number; statsIntervalMs?: number };
 }
 
 export interface WeirServer {
@@ -64,6 +71,8 @@ export interface WeirServer {
   parsePool: ParsePool;
   github: GitHubConfig;
   mail: Mail;
+  /** The UDP/TCP listeners and their decode worker. */
+  collection: Collection;
   /** Stops accepting connections, lets in-flight requests finish, then closes the database. */
   close(): Promise<void>;
 }
@@ -81,6 +90,7 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
   const db = await createDb(env.DATABASE_URL, env.DATABASE_AUTH_TOKEN);
   let vite: ViteDevServer | undefined;
   let parsePool: ParsePool | undefined;
+  let collection: Collection | undefined;
   const fakes: { close(): Promise<void> }[] = [];
   try {
     const github = await githubConfig(env, fakes, logger);
@@ -94,6 +104,24 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
     });
     // Started here, not in route code: the route bundle cannot point at a worker file.
     const pool = (parsePool = await ParsePool.start({ size: env.INGEST_PARSE_WORKERS, logger, maxQueuedBytes: env.INGEST_PARSE_QUEUE_BYTES }));
+
+    const envPort = (port: number) => (port === 0 ? null : port);
+    const collect = options.collect ?? {};
+    const listeners = (collection = await Collection.start({
+      db,
+      manager,
+      logger,
+      host: env.COLLECT_HOST ?? options.host ?? env.HOST,
+      ipfixUdpPort: collect.ipfixUdpPort !== undefined ? collect.ipfixUdpPort : envPort(env.IPFIX_UDP_PORT),
+      netflowUdpPort: collect.netflowUdpPort !== undefined ? collect.netflowUdpPort : envPort(env.NETFLOW_UDP_PORT),
+      ipfixTcpPort: collect.ipfixTcpPort !== undefined ? collect.ipfixTcpPort : envPort(env.IPFIX_TCP_PORT),
+      receiveBufferBytes: env.COLLECT_UDP_RECEIVE_BUFFER_BYTES,
+      templateLifetimeMs: env.IPFIX_TEMPLATE_LIFETIME_SECONDS * 1000,
+      flushRecords: env.COLLECT_FLUSH_RECORDS,
+      flushMs: collect.flushMs ?? env.COLLECT_FLUSH_MS,
+      maxBufferedRecords: env.COLLECT_MAX_BUFFERED_RECORDS,
+      statsIntervalMs: collect.statsIntervalMs,
+    }));
 
     const app = express();
     app.disable("x-powered-by");
@@ -125,7 +153,7 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
       createRequestHandler({
         build,
         mode: production ? "production" : "development",
-        getLoadContext: () => ({ db, env, logger, manager, parsePool: pool, github, mail }),
+        getLoadContext: () => ({ db, env, logger, manager, parsePool: pool, github, mail, collection: listeners }),
       }),
     );
     app.use(lastResortErrorHandler(logger));
@@ -142,13 +170,20 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
     const close = () => {
       // The pool closes after shutDown has drained the HTTP server, so no request loses its parser.
       // A retention run stops after its current transaction, before the database closes.
-      closing ??= retention.stop().then(() => shutDown(httpServer, vite, db, logger, manager)).then(() => pool.close()).then(() => closeAll(fakes));
+      // The listeners stop and store what they buffered before the database closes.
+      closing ??= retention
+        .stop()
+        .then(() => listeners.close())
+        .then(() => shutDown(httpServer, vite, db, logger, manager))
+        .then(() => pool.close())
+        .then(() => closeAll(fakes));
       return closing;
     };
-    return { url, port, httpServer, app, db, env, logger, manager, parsePool: pool, github, mail, close };
+    return { url, port, httpServer, app, db, env, logger, manager, parsePool: pool, github, mail, collection: listeners, close };
   } catch (error) {
     await vite?.close();
     await parsePool?.close();
+    await collection?.close();
     await closeAll(fakes);
     closeDb(db);
     throw error;

@@ -4,7 +4,7 @@ import { startServer } from "~/server/app.server";
 import { parseEnv } from "~/env.server";
 
 const server = await startServer({
-  env: parseEnv({ ...process.env, NODE_ENV: "development", HOST: "127.0.0.1", PORT: "0", LOG_LEVEL: "silent" }),
+  env: parseEnv({ ...process.env, NODE_ENV: "development", HOST: "127.0.0.1", PORT: "0", IPFIX_UDP_PORT: "0", NETFLOW_UDP_PORT: "0", IPFIX_TCP_PORT: "0", LOG_LEVEL: "silent" }),
 });
 process.stdout.write(`WEIR_BENCH_READY ${server.url}\n`);
 process.once("SIGTERM", () => void server.close().then(() => process.exit(0)));

@@ -86,7 +86,7 @@ describe("the Merge page in a browser", () => {
     const { context, page, errors } = await signInWithBrowser(b.browser, t.url, "eli-engineer");
     await page.goto("/t/riverline/merge");
     await page.getByLabel("Collector", { exact: true }).fill("pop-a-archive");
-    await page.getByLabel("Sample file").setInputFiles(path);
+    await page.getByLabel("File", { exact: true }).setInputFiles(path);
     // Every value the progress bar shows while the file is sent, recorded as it changes.
     await page.evaluate(() => {
       const seen: string[] = [];

@@ -4,7 +4,7 @@ import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { createApiKey, scopesFor } from "~/auth/api-keys.server";
 import { parseEnv } from "~/env.server";
-import { startServer, type WeirServer } from "~/server/app.server";
+import { startServer, type StartServerOptions, type WeirServer } from "~/server/app.server";
 import type { UniformSource } from "~/sampling/uniform";
 import { createTenant, ensureCollector } from "~/tenants.server";
 
@@ -15,7 +15,9 @@ export interface TestServer {
   close(): Promise<void>;
 }
 
-export async function startTestServer(options: { env?: Record<string, string>; uniform?: UniformSource } = {}): Promise<TestServer> {
+export async function startTestServer(
+  options: { env?: Record<string, string>; uniform?: UniformSource; collect?: StartServerOptions["collect"] } = {},
+): Promise<TestServer> {
   const dir = mkdtempSync(join(tmpdir(), "weir-test-"));
   const server = await startServer({
     env: parseEnv({ NODE_ENV: "development", HOST: "127.0.0.1", PORT: "0", DATABASE_URL: `file:${join(dir, "weir.db")}`, LOG_LEVEL: "silent",
@@ -23,6 +25,8 @@ export async function startTestServer(options: { env?: Record<string, string>; u
       RETENTION_INTERVAL_MINUTES: "0",
       ...options.env }),
     uniform: options.uniform,
+    // Listeners off unless a test asks for them (on free ports): fixed ports would collide between test files.
+    collect: { ipfixUdpPort: null, netflowUdpPort: null, ipfixTcpPort: null, ...options.collect },
   });
   return {
     server,

@@ -41,7 +41,7 @@ function post(body: BodyInit, headers: Record<string, string> = {}): Request {
 
 /** The packed rows readFlowBatch gives for a request, as plain numbers. */
 async function accepted(pool: ParsePool, request: () => Request) {
-  const { rows, count } = await readFlowBatch(request(), LIMITS, pool);
+  const { rows, count } = (await readFlowBatch(request(), LIMITS, pool)).packed;
   return { rows: [...rows], count };
 }
 

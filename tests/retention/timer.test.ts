@@ -32,7 +32,7 @@ describe("retention timer in the server", () => {
       },
     });
     server = await startServer({
-      env: parseEnv({ NODE_ENV: "development", HOST: "127.0.0.1", PORT: "0", DATABASE_URL: `file:${join(dir, "weir.db")}`, RETENTION_INTERVAL_MINUTES: "60" }),
+      env: parseEnv({ NODE_ENV: "development", HOST: "127.0.0.1", PORT: "0", IPFIX_UDP_PORT: "0", NETFLOW_UDP_PORT: "0", IPFIX_TCP_PORT: "0", DATABASE_URL: `file:${join(dir, "weir.db")}`, RETENTION_INTERVAL_MINUTES: "60" }),
       logger: pino({ level: "info" }, lines),
       uniform: seededUniform(3),
       retention: {

@@ -238,7 +238,7 @@ describe("console sample upload (/t/:tenant/merge/upload)", () => {
     expect(html).toContain(`<datalist id="${list}">${options}</datalist>`);
     const file = /<input[^>]*name="file"[^>]*>/.exec(html)?.[0] ?? "";
     expect(file).toContain('type="file"');
-    expect(file).toContain('accept=".json,application/json"');
+    expect(file).toContain('accept=".json,application/json,.ipfix,application/ipfix"');
     // The limit as the server is configured (SAMPLES_MAX_BODY_BYTES), in binary units.
     expect(html).toContain(formatBytes(MAX_BYTES));
     expect(formatBytes(64 * 1024 * 1024)).toBe("64 MiB");

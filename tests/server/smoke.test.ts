@@ -15,7 +15,7 @@ describe("server (development mode, Vite middleware)", () => {
       env: parseEnv({
         NODE_ENV: "development",
         HOST: "127.0.0.1",
-        PORT: "0",
+        PORT: "0", IPFIX_UDP_PORT: "0", NETFLOW_UDP_PORT: "0", IPFIX_TCP_PORT: "0",
         // A nested directory that does not exist yet: createDb must make it.
         DATABASE_URL: `file:${join(dir, "nested", "weir.db")}`,
         NODE_ID: "smoke-node",
@@ -71,6 +71,8 @@ describe("server (development mode, Vite middleware)", () => {
       "api_keys",
       "audit_log",
       "collectors",
+      "exporter_claims",
+      "exporters",
       "ingest_batches",
       "invites",
       "kept_records",

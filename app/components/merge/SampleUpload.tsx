@@ -13,6 +13,17 @@ export interface UploadSummary {
   to: string | null;
 }
 
+/** What the upload route answers for an IPFIX file (see app/ingest/ipfix-upload.server.ts). */
+export interface IpfixUploadSummary {
+  kind: "ipfix";
+  collector: string;
+  accepted: number;
+  windows: number;
+  from: string | null;
+  to: string | null;
+  ipfix: { messages: number; records: number; unusable: number; samplingInterval: number | null; enterpriseElements: { enterprise: number; id: number; count: number }[] };
+}
+
 interface UploadError {
   code: string;
   message: string;
@@ -22,7 +33,7 @@ interface UploadError {
 type UploadState =
   | { phase: "idle" }
   | { phase: "sending"; sentBytes: number; totalBytes: number }
-  | { phase: "done"; summary: UploadSummary; totalBytes: number }
+  | { phase: "done"; summary: UploadSummary | IpfixUploadSummary; totalBytes: number }
   | { phase: "failed"; error: UploadError };
 
 /** "1.5 MiB": binary units, as the body limit is stated in bytes. */
@@ -67,7 +78,7 @@ export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug:
     const form = new FormData(event.currentTarget);
     const file = form.get("file");
     if (!(file instanceof File) || file.size === 0) {
-      setFileError("Choose a sample file (.json) to upload.");
+      setFileError("Choose a sample file (.json) or an IPFIX file (.ipfix) to upload.");
       return;
     }
     if (file.size > maxBytes) {
@@ -93,7 +104,7 @@ export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug:
       }
       if (request.status >= 200 && request.status < 300) {
         try {
-          setState({ phase: "done", summary: JSON.parse(request.responseText) as UploadSummary, totalBytes: file.size });
+          setState({ phase: "done", summary: JSON.parse(request.responseText) as UploadSummary | IpfixUploadSummary, totalBytes: file.size });
           formRef.current?.reset();
           void revalidator.revalidate();
         } catch {
@@ -109,11 +120,13 @@ export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug:
 
   const sending = state.phase === "sending";
   return (
-    <Panel title="Upload a sample file">
+    <Panel title="Upload a sample file or an IPFIX file">
       <p className="mb-4 max-w-3xl text-sm text-river-200">
-        The file's windows become reservoirs of the collector you name, whatever collector the file came from. Where that collector already holds a
-        window, the two reservoirs are merged into one valid sample, so the file must not repeat records the collector already holds (they would
-        be counted twice). A file is applied whole or not at all.
+        A <strong>sample file</strong>'s windows become reservoirs of the collector you name, whatever collector the file came from. Where that
+        collector already holds a window, the two reservoirs are merged into one valid sample, so the file must not repeat records the collector
+        already holds (they would be counted twice). An <strong>IPFIX file</strong> (RFC 5655, as probes and collectors write them) is sampled
+        into the collector like records sent to it; records of the same flows already sent would be counted twice too. A file is applied whole or
+        not at all.
       </p>
       <form ref={formRef} onSubmit={onSubmit} encType="multipart/form-data" className="grid gap-4 md:grid-cols-[1fr_1fr_auto] md:items-start">
         <Field label="Collector" htmlFor={`${id}-collector`} hint="An existing collector, or a new name to create one.">
@@ -134,13 +147,13 @@ export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug:
             ))}
           </datalist>
         </Field>
-        <Field label="Sample file" htmlFor={`${id}-file`} error={fileError} hint={`JSON from the sample export, at most ${formatBytes(maxBytes)}.`}>
+        <Field label="File" htmlFor={`${id}-file`} error={fileError} hint={`A sample file (JSON from the sample export) or an IPFIX file (.ipfix), at most ${formatBytes(maxBytes)}.`}>
           <input
             id={`${id}-file`}
             name="file"
             type="file"
             required
-            accept=".json,application/json"
+            accept=".json,application/json,.ipfix,application/ipfix"
             aria-invalid={fileError ? true : undefined}
             className={`${inputClass} file:mr-3 file:rounded file:border-0 file:bg-river-800 file:px-2 file:py-1 file:text-river-100`}
             disabled={sending}
@@ -158,7 +171,7 @@ export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug:
       {state.phase === "done" ? (
         <>
           <UploadProgress sentBytes={state.totalBytes} totalBytes={state.totalBytes} done />
-          <UploadResult summary={state.summary} />
+          {"kind" in state.summary ? <IpfixResult summary={state.summary} /> : <UploadResult summary={state.summary} />}
         </>
       ) : null}
       {state.phase === "failed" ? <UploadFailure error={state.error} /> : null}
@@ -215,6 +228,47 @@ function UploadResult({ summary }: { summary: UploadSummary }) {
           <dd className="tabular-nums">{String(summary.records)}</dd>
         </div>
       </dl>
+      <p className="mt-2 text-xs text-emerald-300">Time range: {range}</p>
+    </div>
+  );
+}
+
+function IpfixResult({ summary }: { summary: IpfixUploadSummary }) {
+  const range = summary.from && summary.to ? `${summary.from} – ${summary.to}` : "no windows";
+  const { ipfix } = summary;
+  return (
+    <div role="status" className="mt-4 rounded-md border border-emerald-400/40 bg-emerald-950/30 px-4 py-3 text-sm text-emerald-100">
+      <p className="font-medium">IPFIX file sampled into collector “{summary.collector}”.</p>
+      <dl className="mt-2 grid grid-cols-2 gap-x-6 gap-y-1 sm:grid-cols-4">
+        <div>
+          <dt className="text-xs text-emerald-300">messages</dt>
+          <dd className="tabular-nums">{ipfix.messages}</dd>
+        </div>
+        <div>
+          <dt className="text-xs text-emerald-300">flow records stored</dt>
+          <dd className="tabular-nums">{summary.accepted}</dd>
+        </div>
+        <div>
+          <dt className="text-xs text-emerald-300">unusable records</dt>
+          <dd className="tabular-nums" title="Data records without addresses, protocol, or positive byte and packet counts: not stored">
+            {ipfix.unusable}
+          </dd>
+        </div>
+        <div>
+          <dt className="text-xs text-emerald-300">windows</dt>
+          <dd className="tabular-nums">{summary.windows}</dd>
+        </div>
+      </dl>
+      {ipfix.samplingInterval !== null ? (
+        <p className="mt-2 text-xs text-amber-200">
+          The file announces packet sampling of 1 in {ipfix.samplingInterval}: its byte and packet counters were multiplied by {ipfix.samplingInterval}.
+        </p>
+      ) : null}
+      {ipfix.enterpriseElements.length > 0 ? (
+        <p className="mt-2 text-xs text-emerald-300">
+          Enterprise-specific elements skipped: {ipfix.enterpriseElements.map((e) => `${e.enterprise}/${e.id} ×${e.count}`).join(", ")}
+        </p>
+      ) : null}
       <p className="mt-2 text-xs text-emerald-300">Time range: {range}</p>
     </div>
   );
