@@ -1,14 +1,30 @@
-// Runs once before the test files. Browser tests drive Debian's chromium through
-// playwright-core (Playwright's own browser download cannot work here), so install
-// it with apt-get when it is missing — CI machines start without it.
+// Runs once before the test files. Some tests drive Debian programs: browser tests drive
+// chromium through playwright-core (Playwright's own browser download cannot work here), and
+// the IPFIX / NetFlow tests use softflowd as a real exporter with tshark and ipfixDump as
+// reference decoders. CI machines start without them, so install whichever is missing with
+// apt-get (one update, one install).
 import { execSync } from "node:child_process";
 import { existsSync } from "node:fs";
 
 export const CHROMIUM = "/usr/bin/chromium";
+export const SOFTFLOWD = "/usr/sbin/softflowd";
+export const TSHARK = "/usr/bin/tshark";
+export const IPFIXDUMP = "/usr/bin/ipfixDump";
+
+const DEBIAN_PACKAGES: { path: string; name: string }[] = [
+  { path: CHROMIUM, name: "chromium" },
+  { path: SOFTFLOWD, name: "softflowd" },
+  { path: TSHARK, name: "tshark" },
+  { path: IPFIXDUMP, name: "libfixbuf-tools" },
+];
 
 export default function setup(): void {
-  if (existsSync(CHROMIUM)) return;
-  console.log("Installing Debian's chromium for the browser tests (apt-get)…");
-  execSync("apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium", { stdio: "inherit" });
-  if (!existsSync(CHROMIUM)) throw new Error(`chromium is still missing at ${CHROMIUM} after apt-get install`);
+  const missing = DEBIAN_PACKAGES.filter((p) => !existsSync(p.path));
+  if (missing.length === 0) return;
+  const names = missing.map((p) => p.name).join(" ");
+  console.log(`Installing Debian packages the tests use (apt-get): ${names}…`);
+  // noninteractive: tshark's package asks a debconf question (may non-root users capture?) and would wait for an answer.
+  execSync(`apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq ${names}`, { stdio: "inherit" });
+  const still = missing.filter((p) => !existsSync(p.path));
+  if (still.length > 0) throw new Error(`still missing after apt-get install: ${still.map((p) => `${p.path} (${p.name})`).join(", ")}`);
 }
