@@ -1,4 +1,4 @@
-import { and, asc, eq, inArray } from "drizzle-orm";
+import { and, asc, eq } from "drizzle-orm";
 import { z } from "zod";
 import { recordAudit } from "~/audit.server";
 import type { Db } from "~/db/client.server";
@@ -405,18 +405,6 @@ export async function listUnclaimedExporters(db: Db): Promise<UnclaimedExporter[
   const groups = [...byAddress.values()];
   for (const g of groups) g.domains.sort((a, b) => a.domainId - b.domainId || a.transport.localeCompare(b.transport));
   return groups.sort((a, b) => b.lastSeenAt - a.lastSeenAt || a.address.localeCompare(b.address));
-}
-
-/** Claims per collector of a tenant (stream collectors only), for Intake. */
-export async function claimCountsByCollector(db: Db, tenantId: number, collectorIds: number[]): Promise<Map<number, number>> {
-  if (collectorIds.length === 0) return new Map();
-  const rows = await db
-    .select({ collectorId: exporterClaims.collectorId })
-    .from(exporterClaims)
-    .where(and(eq(exporterClaims.tenantId, tenantId), inArray(exporterClaims.collectorId, collectorIds)));
-  const counts = new Map<number, number>();
-  for (const r of rows) counts.set(r.collectorId, (counts.get(r.collectorId) ?? 0) + 1);
-  return counts;
 }
 
 async function readObserved(db: Db): Promise<{ exporter: ObservedExporter; address: Uint8Array | null }[]> {

@@ -22,17 +22,9 @@ const REFRESH_MS = 5000;
 
 /** Where the listeners are: the ports they are bound to (null when off) and the address they bind to. */
 function listeners(context: AppLoadContext) {
-  // The running listeners know their real ports (0 in the environment asks the OS for one);
-  // without them, the environment's, with the documented defaults.
-  const env = context.env as typeof context.env & Partial<Record<"IPFIX_UDP_PORT" | "NETFLOW_UDP_PORT" | "IPFIX_TCP_PORT", number>> & { COLLECT_HOST?: string };
-  const bound = (context as { collection?: { ports?: { ipfixUdp?: number; netflowUdp?: number; ipfixTcp?: number } } }).collection?.ports;
-  const configured = (port: number | undefined, fallback: number) => ((port ?? fallback) === 0 ? null : (port ?? fallback));
-  return {
-    ipfixUdp: bound ? (bound.ipfixUdp ?? null) : configured(env.IPFIX_UDP_PORT, 4739),
-    netflowUdp: bound ? (bound.netflowUdp ?? null) : configured(env.NETFLOW_UDP_PORT, 2055),
-    ipfixTcp: bound ? (bound.ipfixTcp ?? null) : configured(env.IPFIX_TCP_PORT, 4739),
-    bindHost: env.COLLECT_HOST ?? env.HOST,
-  };
+  // The running listeners know their ports (0 in the environment asks the OS for a free one).
+  const { ipfixUdp, netflowUdp, ipfixTcp } = context.collection.ports;
+  return { ipfixUdp: ipfixUdp ?? null, netflowUdp: netflowUdp ?? null, ipfixTcp: ipfixTcp ?? null, bindHost: context.env.COLLECT_HOST ?? context.env.HOST };
 }
 
 /** Exporters (every role reads; admins claim and release): the page; its figures come from /t/:tenant/exporters-data. */
@@ -97,9 +89,8 @@ export async function action({ request, context, params }: Route.ActionArgs) {
 
 /** The listeners of this process take the change at once; other nodes notice it within seconds (claimsFingerprint). */
 async function applyNow(context: AppLoadContext): Promise<void> {
-  const collection = (context as { collection?: { reloadClaims?: () => Promise<void> } }).collection;
   try {
-    await collection?.reloadClaims?.();
+    await context.collection.reloadClaims();
   } catch (error) {
     context.logger.warn({ err: error }, "exporters: reloading claims after a change failed; the periodic check will pick it up");
   }

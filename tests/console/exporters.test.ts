@@ -233,3 +233,25 @@ describe("console Exporters", () => {
     expect(await visible(again)).toContain("This tenant has no claim on 192.0.2.80/32, every domain.");
   });
 });
+
+describe("console Exporters with the listeners running", () => {
+  let t: TestServer;
+  let vera: SignedIn;
+  beforeAll(async () => {
+    // Free ports from the OS for the two UDP listeners; TCP off.
+    t = await startTestServer({ collect: { ipfixUdpPort: 0, netflowUdpPort: 0, ipfixTcpPort: null } });
+    const tenant = await createTenant(t.server.db, { slug: "riverline" });
+    await setMembership(t.server.db, (await ensureUserByEmail(t.server.db, "vera@example.com")).id, tenant.id, "viewer");
+    vera = await signIn(t.url, "vera-viewer");
+  });
+  afterAll(() => t?.close());
+
+  it("tells where to point a device: the ports the listeners are bound to, and which are off", async () => {
+    const { ipfixUdp, netflowUdp } = t.server.collection.ports;
+    expect(ipfixUdp).toBeGreaterThan(0);
+    const page = await visible(await vera.fetch("/t/riverline/exporters"));
+    expect(page).toMatch(new RegExp(`IPFIX over UDP</dt><dd[^>]*>port ${ipfixUdp}</dd>`));
+    expect(page).toMatch(new RegExp(`NetFlow v9 over UDP</dt><dd[^>]*>port ${netflowUdp}</dd>`));
+    expect(page).toMatch(/IPFIX over TCP<\/dt><dd[^>]*><span[^>]*>off<\/span>/);
+  });
+});
