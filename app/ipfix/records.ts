@@ -61,29 +61,27 @@ export class RecordContext {
   }
 }
 
-/** Big-endian unsigned integer of 1–6 octets (reduced-size encoding, RFC 7011 §6.2). */
-function readUint(msg: Uint8Array, at: number, len: number): number {
-  switch (len) {
-    case 1: return msg[at];
-    case 2: return (msg[at] << 8) | msg[at + 1];
-    case 4: return msg[at] * 16777216 + ((msg[at + 1] << 16) | (msg[at + 2] << 8) | msg[at + 3]);
-    default: {
-      let v = 0;
-      for (let i = 0; i < len; i++) v = v * 256 + msg[at + i];
-      return v;
-    }
-  }
+/** Big-endian unsigned integer of any 1–6 octets (reduced-size encoding, RFC 7011 §6.2). */
+function readUintSlow(msg: Uint8Array, at: number, len: number): number {
+  let v = 0;
+  for (let i = 0; i < len; i++) v = v * 256 + msg[at + i];
+  return v;
+}
+
+/** Big-endian unsigned integer; small enough for V8 to inline at every use. */
+function readUint(mv: DataView, msg: Uint8Array, at: number, len: number): number {
+  return len === 4 ? mv.getUint32(at) : len === 2 ? mv.getUint16(at) : len === 1 ? msg[at] : readUintSlow(msg, at, len);
 }
 
 /** An absolute time field in epoch milliseconds (floor), by its encoding. */
-function absoluteTime(kind: number, msg: Uint8Array, at: number, len: number, exportMs: number): number {
+function absoluteTime(kind: number, mv: DataView, msg: Uint8Array, at: number, len: number, exportMs: number): number {
   switch (kind) {
-    case TIME_SECONDS: return readUint(msg, at, 4) * 1000;
-    case TIME_MILLISECONDS: return readUint(msg, at, 4) * TWO32 + readUint(msg, at + 4, 4);
+    case TIME_MILLISECONDS: return mv.getUint32(at) * TWO32 + mv.getUint32(at + 4);
+    case TIME_SECONDS: return mv.getUint32(at) * 1000;
     case TIME_NTP: // seconds since 1900 and a binary fraction of a second (RFC 7011 §6.1.9–6.1.10)
-      return (readUint(msg, at, 4) - NTP_UNIX_OFFSET_SECONDS) * 1000 + Math.floor((readUint(msg, at + 4, 4) * 1000) / TWO32);
+      return (mv.getUint32(at) - NTP_UNIX_OFFSET_SECONDS) * 1000 + Math.floor((mv.getUint32(at + 4) * 1000) / TWO32);
     case TIME_DELTA_MICROSECONDS: // microseconds before the message's Export Time (IANA flowStartDeltaMicroseconds)
-      return Math.floor(exportMs - readUint(msg, at, len) / 1000);
+      return Math.floor(exportMs - readUint(mv, msg, at, len) / 1000);
     default: return Number.NaN;
   }
 }
@@ -118,11 +116,14 @@ function isZero4(msg: Uint8Array, at: number): boolean {
   return (msg[at] | msg[at + 1] | msg[at + 2] | msg[at + 3]) === 0;
 }
 
-function writeAddress(rows: Uint8Array, o: number, msg: Uint8Array, at: number, v6: boolean): void {
+function writeAddress(rows: Uint8Array, view: DataView, o: number, msg: Uint8Array, at: number, v6: boolean): void {
   if (v6) {
     for (let i = 0; i < 16; i++) rows[o + i] = msg[at + i];
   } else {
-    // IPv4-mapped IPv6 (RFC 4291 §2.5.5.2), as app/net/address.ts stores IPv4; the row is zeroed.
+    // IPv4-mapped IPv6 (RFC 4291 §2.5.5.2), as app/net/address.ts stores IPv4.
+    view.setUint32(o, 0);
+    view.setUint32(o + 4, 0);
+    view.setUint16(o + 8, 0);
     rows[o + 10] = 0xff;
     rows[o + 11] = 0xff;
     rows[o + 12] = msg[at];
@@ -130,6 +131,13 @@ function writeAddress(rows: Uint8Array, o: number, msg: Uint8Array, at: number, 
     rows[o + 14] = msg[at + 2];
     rows[o + 15] = msg[at + 3];
   }
+}
+
+/** Zeroes what a row's fields do not overwrite: priority and weight (zero until sampled) and the 2 spare octets. */
+function zeroRow(view: DataView, o: number): void {
+  view.setFloat64(o, 0, true);
+  view.setFloat64(o + 8, 0, true);
+  view.setUint16(o + ROW_FLAGS_AT + 1, 0);
 }
 
 /** Writes an unsigned64 counter, multiplied by num/den and rounded when the exporter samples. */
@@ -174,6 +182,7 @@ export function decodeFlowRecords(plan: Plan, msg: Uint8Array, start: number, en
   const sysUptime = ctx.sysUptime;
   const num = ctx.scaleNum;
   const den = ctx.scaleDen;
+  const mv = new DataView(msg.buffer, msg.byteOffset, msg.byteLength);
   const maxRecords = Math.floor((end - start) / minLength);
   out.reserve(reverse ? 2 * maxRecords : maxRecords);
   const rows = out.bytes;
@@ -211,52 +220,54 @@ export function decodeFlowRecords(plan: Plan, msg: Uint8Array, start: number, en
         case OP_DST4: dst4 = at; break;
         case OP_SRC6: src6 = at; break;
         case OP_DST6: dst6 = at; break;
-        case OP_SPORT: sport = readUint(msg, at, len); break;
-        case OP_DPORT: dport = readUint(msg, at, len); break;
+        case OP_SPORT: sport = readUint(mv, msg, at, len); break;
+        case OP_DPORT: dport = readUint(mv, msg, at, len); break;
         case OP_PROTO: proto = msg[at]; break;
         case OP_BYTES:
           hasBytes = true;
-          if (len <= 4) bytesLo = readUint(msg, at, len);
-          else { bytesHi = readUint(msg, at, len - 4); bytesLo = readUint(msg, at + len - 4, 4); }
+          if (len <= 4) bytesLo = readUint(mv, msg, at, len);
+          else { bytesHi = readUint(mv, msg, at, len - 4); bytesLo = readUint(mv, msg, at + len - 4, 4); }
           break;
         case OP_PACKETS:
           hasPackets = true;
-          if (len <= 4) packetsLo = readUint(msg, at, len);
-          else { packetsHi = readUint(msg, at, len - 4); packetsLo = readUint(msg, at + len - 4, 4); }
+          if (len <= 4) packetsLo = readUint(mv, msg, at, len);
+          else { packetsHi = readUint(mv, msg, at, len - 4); packetsLo = readUint(mv, msg, at + len - 4, 4); }
           break;
-        case OP_INGRESS: ingress = readUint(msg, at, len); flags |= HAS_INGRESS; break;
-        case OP_EGRESS: egress = readUint(msg, at, len); flags |= HAS_EGRESS; break;
-        case OP_SRC_AS: srcAs = readUint(msg, at, len); flags |= HAS_SRC_AS; break;
-        case OP_DST_AS: dstAs = readUint(msg, at, len); flags |= HAS_DST_AS; break;
+        case OP_INGRESS: ingress = readUint(mv, msg, at, len); flags |= HAS_INGRESS; break;
+        case OP_EGRESS: egress = readUint(mv, msg, at, len); flags |= HAS_EGRESS; break;
+        case OP_SRC_AS: srcAs = readUint(mv, msg, at, len); flags |= HAS_SRC_AS; break;
+        case OP_DST_AS: dstAs = readUint(mv, msg, at, len); flags |= HAS_DST_AS; break;
         case OP_START:
-          if (kinds[k] === TIME_SYS_UP_TIME) startUp = readUint(msg, at, len);
-          else startMs = absoluteTime(kinds[k], msg, at, len, exportMs);
+          if (kinds[k] === TIME_MILLISECONDS) startMs = mv.getUint32(at) * TWO32 + mv.getUint32(at + 4);
+          else if (kinds[k] === TIME_SYS_UP_TIME) startUp = readUint(mv, msg, at, len);
+          else startMs = absoluteTime(kinds[k], mv, msg, at, len, exportMs);
           break;
         case OP_END:
-          if (kinds[k] === TIME_SYS_UP_TIME) endUp = readUint(msg, at, len);
-          else endMs = absoluteTime(kinds[k], msg, at, len, exportMs);
+          if (kinds[k] === TIME_MILLISECONDS) endMs = mv.getUint32(at) * TWO32 + mv.getUint32(at + 4);
+          else if (kinds[k] === TIME_SYS_UP_TIME) endUp = readUint(mv, msg, at, len);
+          else endMs = absoluteTime(kinds[k], mv, msg, at, len, exportMs);
           break;
-        case OP_INIT_TIME: init = absoluteTime(TIME_MILLISECONDS, msg, at, 8, exportMs); break;
+        case OP_INIT_TIME: init = absoluteTime(TIME_MILLISECONDS, mv, msg, at, 8, exportMs); break;
         case OP_R_BYTES:
           hasRBytes = true;
-          if (len <= 4) rBytesLo = readUint(msg, at, len);
-          else { rBytesHi = readUint(msg, at, len - 4); rBytesLo = readUint(msg, at + len - 4, 4); }
+          if (len <= 4) rBytesLo = readUint(mv, msg, at, len);
+          else { rBytesHi = readUint(mv, msg, at, len - 4); rBytesLo = readUint(mv, msg, at + len - 4, 4); }
           break;
         case OP_R_PACKETS:
           hasRPackets = true;
-          if (len <= 4) rPacketsLo = readUint(msg, at, len);
-          else { rPacketsHi = readUint(msg, at, len - 4); rPacketsLo = readUint(msg, at + len - 4, 4); }
+          if (len <= 4) rPacketsLo = readUint(mv, msg, at, len);
+          else { rPacketsHi = readUint(mv, msg, at, len - 4); rPacketsLo = readUint(mv, msg, at + len - 4, 4); }
           break;
         case OP_R_START:
-          if (kinds[k] === TIME_SYS_UP_TIME) rStartUp = readUint(msg, at, len);
-          else rStartMs = absoluteTime(kinds[k], msg, at, len, exportMs);
+          if (kinds[k] === TIME_SYS_UP_TIME) rStartUp = readUint(mv, msg, at, len);
+          else rStartMs = absoluteTime(kinds[k], mv, msg, at, len, exportMs);
           break;
         case OP_R_END:
-          if (kinds[k] === TIME_SYS_UP_TIME) rEndUp = readUint(msg, at, len);
-          else rEndMs = absoluteTime(kinds[k], msg, at, len, exportMs);
+          if (kinds[k] === TIME_SYS_UP_TIME) rEndUp = readUint(mv, msg, at, len);
+          else rEndMs = absoluteTime(kinds[k], mv, msg, at, len, exportMs);
           break;
-        case OP_R_INGRESS: rIngress = readUint(msg, at, len); break;
-        case OP_R_EGRESS: rEgress = readUint(msg, at, len); break;
+        case OP_R_INGRESS: rIngress = readUint(mv, msg, at, len); break;
+        case OP_R_EGRESS: rEgress = readUint(mv, msg, at, len); break;
       }
     }
     // SysUpTime forms: NetFlow v9 against the header (boot = UNIX Secs − sysUpTime, RFC 3954
@@ -275,9 +286,9 @@ export function decodeFlowRecords(plan: Plan, msg: Uint8Array, start: number, en
     const keyed = srcAt >= 0 && dstAt >= 0 && proto >= 0;
 
     if (keyed && hasBytes && hasPackets && (bytesHi | bytesLo) !== 0 && (packetsHi | packetsLo) !== 0) {
-      rows.fill(0, o, o + ROW);
-      writeAddress(rows, o + ROW_SRC_AT, msg, srcAt, srcV6);
-      writeAddress(rows, o + ROW_DST_AT, msg, dstAt, dstV6);
+      zeroRow(view, o);
+      writeAddress(rows, view, o + ROW_SRC_AT, msg, srcAt, srcV6);
+      writeAddress(rows, view, o + ROW_DST_AT, msg, dstAt, dstV6);
       const b = writeCounter(view, o + ROW_BYTES_AT, bytesHi, bytesLo, num, den);
       const k = writeCounter(view, o + ROW_PACKETS_AT, packetsHi, packetsLo, num, den);
       view.setFloat64(o + ROW_START_AT, startMs, true);
@@ -312,9 +323,9 @@ export function decodeFlowRecords(plan: Plan, msg: Uint8Array, start: number, en
         let inIf = 0, outIf = 0;
         if (rIngress >= 0) { inIf = rIngress; rFlags |= HAS_INGRESS; } else if (flags & HAS_EGRESS) { inIf = egress; rFlags |= HAS_INGRESS; }
         if (rEgress >= 0) { outIf = rEgress; rFlags |= HAS_EGRESS; } else if (flags & HAS_INGRESS) { outIf = ingress; rFlags |= HAS_EGRESS; }
-        rows.fill(0, o, o + ROW);
-        writeAddress(rows, o + ROW_SRC_AT, msg, dstAt, dstV6);
-        writeAddress(rows, o + ROW_DST_AT, msg, srcAt, srcV6);
+        zeroRow(view, o);
+        writeAddress(rows, view, o + ROW_SRC_AT, msg, dstAt, dstV6);
+        writeAddress(rows, view, o + ROW_DST_AT, msg, srcAt, srcV6);
         const b = writeCounter(view, o + ROW_BYTES_AT, rBytesHi, rBytesLo, num, den);
         const k = writeCounter(view, o + ROW_PACKETS_AT, rPacketsHi, rPacketsLo, num, den);
         view.setFloat64(o + ROW_START_AT, Number.isNaN(rStartMs) ? startMs : rStartMs, true);
@@ -356,6 +367,7 @@ export function decodeFlowRecords(plan: Plan, msg: Uint8Array, start: number, en
 export function decodeOptionsRecords(plan: Plan, msg: Uint8Array, start: number, end: number, ctx: RecordContext): boolean {
   const ops = plan.ops;
   const nOps = plan.timeKinds.length;
+  const mv = new DataView(msg.buffer, msg.byteOffset, msg.byteLength);
   let p = start;
   while (end - p >= plan.minLength) {
     let next: number;
@@ -374,12 +386,12 @@ export function decodeOptionsRecords(plan: Plan, msg: Uint8Array, start: number,
       const at = plan.fixedLength >= 0 ? p + ops[q + 2] : plan.fieldOffsets[ops[q + 1]];
       const len = ops[q + 3];
       switch (ops[q]) {
-        case OP_SAMPLING_INTERVAL: interval = readUint(msg, at, len); break;
-        case OP_PACKET_INTERVAL: packetInterval = readUint(msg, at, len); break;
-        case OP_PACKET_SPACE: packetSpace = readUint(msg, at, len); break;
-        case OP_SAMPLING_SIZE: size = readUint(msg, at, len); break;
-        case OP_SAMPLING_POPULATION: population = readUint(msg, at, len); break;
-        case OP_INIT_TIME: ctx.initTimeSeen = absoluteTime(TIME_MILLISECONDS, msg, at, 8, 0); break;
+        case OP_SAMPLING_INTERVAL: interval = readUint(mv, msg, at, len); break;
+        case OP_PACKET_INTERVAL: packetInterval = readUint(mv, msg, at, len); break;
+        case OP_PACKET_SPACE: packetSpace = readUint(mv, msg, at, len); break;
+        case OP_SAMPLING_SIZE: size = readUint(mv, msg, at, len); break;
+        case OP_SAMPLING_POPULATION: population = readUint(mv, msg, at, len); break;
+        case OP_INIT_TIME: ctx.initTimeSeen = absoluteTime(TIME_MILLISECONDS, mv, msg, at, 8, 0); break;
       }
     }
     // A scale below 1 (or a zero interval) announces no sampling Weir can undo; ignore it.

@@ -22,7 +22,6 @@ export const CURRENT_RECORDS = 1;
 /** RFC 3954 §5.1: the number counts messages (export packets). */
 export const PACKETS = 2;
 
-const CONVENTIONS = [PREVIOUS_RECORDS, CURRENT_RECORDS, PACKETS] as const;
 /**
  * A forward jump larger than this is taken as a restart, not loss: a 2^32 counter that wrapped
  * or an exporter that restarted from an arbitrary number cannot be told from a gap of billions.
@@ -47,10 +46,12 @@ function distance(a: number, b: number): number {
 /** What one message does to the loss count. */
 export interface SequenceStep {
   /** Newly found lost (≥ 0), in the unit of the convention in use. */
-  lost: number;
+  readonly lost: number;
   /** Earlier loss taken back because the missing message arrived late. */
-  recovered: number;
+  readonly recovered: number;
 }
+
+const NOTHING: SequenceStep = Object.freeze({ lost: 0, recovered: 0 });
 
 export class SequenceTracker {
   /** The convention in use, or null before the first message explained by one. */
@@ -82,37 +83,39 @@ export class SequenceTracker {
    * @example t.observe(0, 30, -1); t.observe(30, 30, -1) // { lost: 0, recovered: 0 } (RFC 7011 §3.1)
    */
   observe(seq: number, count: number, uptime: number): SequenceStep {
-    const none = { lost: 0, recovered: 0 };
     const prevSeq = this.lastSeq;
     const prevCount = this.lastCount;
     const restarted = uptime >= 0 && this.lastUptime >= 0 && uptime < this.lastUptime;
     if (prevSeq < 0 || restarted) {
       this.take(seq, count, uptime, restarted);
-      return none;
+      return NOTHING;
     }
     // Where each convention expects this message, as the start of the span it covers. A
     // convention excuses a message only while it is credible — it explained the previous message
     // too — so that a real gap is not excused by another convention matching by coincidence.
     // With no credible convention (the start, or just after a gap) any match excuses.
-    const known = [prevCount >= 0, count >= 0, true];
-    const anyCredible = this.streak.some((n) => n > 0);
-    const excusing: number[] = [];
-    for (const c of CONVENTIONS) {
-      if (!known[c]) continue;
+    // (Once per message: bit sets rather than arrays.)
+    const streak = this.streak;
+    const anyCredible = streak[0] > 0 || streak[1] > 0 || streak[2] > 0;
+    let excusing = 0;
+    for (let c = 0; c < 3; c++) {
+      if (!this.known(c, prevCount, count)) continue;
       const match = this.spanStart(c, seq, count) === this.spanEnd(c, prevSeq, prevCount);
-      if (match && (!anyCredible || this.streak[c] > 0)) excusing.push(c);
-      this.streak[c] = match ? this.streak[c] + 1 : 0;
+      if (match && (!anyCredible || streak[c] > 0)) excusing |= 1 << c;
+      streak[c] = match ? streak[c] + 1 : 0;
     }
-    if (excusing.length > 0) {
+    if (excusing !== 0) {
       const current = this.convention;
-      if (current === null || !excusing.includes(current)) this.convention = excusing.includes(this.fallback) ? this.fallback : excusing[0];
+      if (current === null || (excusing & (1 << current)) === 0) {
+        this.convention = excusing & (1 << this.fallback) ? this.fallback : excusing & 1 ? 0 : excusing & 2 ? 1 : 2;
+      }
       this.take(seq, count, uptime, false);
-      return none;
+      return NOTHING;
     }
     const c = this.convention ?? this.fallback;
-    if (!known[c]) {
+    if (!this.known(c, prevCount, count)) {
       this.take(seq, count, uptime, true); // resynchronise rather than guess
-      return none;
+      return NOTHING;
     }
     const expected = this.spanEnd(c, prevSeq, prevCount);
     const start = this.spanStart(c, seq, count);
@@ -128,7 +131,12 @@ export class SequenceTracker {
       if (recovered > 0) return { lost: 0, recovered }; // a late datagram: the newest message stays the reference
     }
     this.take(seq, count, uptime, true); // backwards (restart) or too far ahead: start over
-    return none;
+    return NOTHING;
+  }
+
+  /** Whether convention c can be checked: the record counts it needs are known. */
+  private known(c: number, prevCount: number, count: number): boolean {
+    return c === PREVIOUS_RECORDS ? prevCount >= 0 : c === CURRENT_RECORDS ? count >= 0 : true;
   }
 
   private take(seq: number, count: number, uptime: number, clearGaps: boolean): void {

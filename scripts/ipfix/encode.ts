@@ -81,12 +81,17 @@ export interface V9PacketDesc {
 }
 
 class Bytes {
-  private chunks: number[] = [];
-  get length(): number {
-    return this.chunks.length;
+  private buf: Uint8Array<ArrayBuffer> = new Uint8Array(256);
+  length = 0;
+  private room(n: number): void {
+    if (this.length + n <= this.buf.length) return;
+    const grown = new Uint8Array(Math.max(this.buf.length * 2, this.length + n));
+    grown.set(this.buf.subarray(0, this.length));
+    this.buf = grown;
   }
   u8(v: number): this {
-    this.chunks.push(v & 0xff);
+    this.room(1);
+    this.buf[this.length++] = v & 0xff;
     return this;
   }
   u16(v: number): this {
@@ -96,19 +101,22 @@ class Bytes {
     return this.u16(Math.floor(v / 65536) % 65536).u16(v % 65536);
   }
   raw(b: Uint8Array | number[]): this {
-    for (const x of b) this.chunks.push(x);
+    this.room(b.length);
+    this.buf.set(b, this.length);
+    this.length += b.length;
     return this;
   }
   zeros(n: number): this {
-    for (let i = 0; i < n; i++) this.chunks.push(0);
+    this.room(n);
+    this.length += n; // the buffer is zero beyond length
     return this;
   }
   set16(at: number, v: number): void {
-    this.chunks[at] = (v >>> 8) & 0xff;
-    this.chunks[at + 1] = v & 0xff;
+    this.buf[at] = (v >>> 8) & 0xff;
+    this.buf[at + 1] = v & 0xff;
   }
-  bytes(): Uint8Array {
-    return Uint8Array.from(this.chunks);
+  bytes(): Uint8Array<ArrayBuffer> {
+    return this.buf.slice(0, this.length);
   }
 }
 
@@ -129,6 +137,11 @@ function ipv6(text: string): number[] {
 }
 
 function unsigned(value: number | bigint, length: number): number[] {
+  if (typeof value === "number" && Number.isSafeInteger(value) && value >= 0 && (length >= 7 || value < 2 ** (8 * length))) {
+    const out = new Array<number>(length).fill(0);
+    for (let i = length - 1, v = value; i >= 0 && v > 0; i--, v = Math.floor(v / 256)) out[i] = v % 256;
+    return out;
+  }
   let v = BigInt(value);
   if (v < 0n || v >= 1n << BigInt(8 * length)) throw new Error(`${value} does not fit in ${length} octets`);
   const out = new Array<number>(length);
@@ -177,16 +190,16 @@ function dataBody(b: Bytes, set: DataSetDesc): void {
   b.zeros(set.padding ?? 0);
 }
 
-function withHeader(setId: number, fill: (b: Bytes) => void): number[] {
+function withHeader(setId: number, fill: (b: Bytes) => void): Uint8Array {
   const b = new Bytes();
   b.u16(setId).u16(0);
   fill(b);
   if (b.length > 65535) throw new Error("a set is at most 65535 octets");
   b.set16(2, b.length);
-  return [...b.bytes()];
+  return b.bytes();
 }
 
-function ipfixSet(set: IpfixSetDesc): number[] {
+function ipfixSet(set: IpfixSetDesc): Uint8Array {
   if ("templates" in set) {
     return withHeader(2, (b) => {
       for (const t of set.templates) {
@@ -216,15 +229,17 @@ function ipfixSet(set: IpfixSetDesc): number[] {
 }
 
 /** One IPFIX message: the 16-octet header (RFC 7011 §3.1) and its sets. */
-export function ipfixMessage(desc: IpfixMessageDesc): Uint8Array {
-  const sets = desc.sets.flatMap(ipfixSet);
+export function ipfixMessage(desc: IpfixMessageDesc): Uint8Array<ArrayBuffer> {
+  const sets = desc.sets.map(ipfixSet);
+  const length = 16 + sets.reduce((n, set) => n + set.length, 0);
   const b = new Bytes();
-  b.u16(10).u16(16 + sets.length).u32(desc.exportTime).u32(desc.sequence).u32(desc.domain).raw(sets);
+  b.u16(10).u16(length).u32(desc.exportTime).u32(desc.sequence).u32(desc.domain);
+  for (const set of sets) b.raw(set);
   if (b.length > 65535) throw new Error("an IPFIX message is at most 65535 octets");
   return b.bytes();
 }
 
-function v9FlowSet(set: V9FlowSetDesc): { octets: number[]; records: number } {
+function v9FlowSet(set: V9FlowSetDesc): { octets: Uint8Array; records: number } {
   if ("templates" in set) {
     const octets = withHeader(0, (b) => {
       for (const t of set.templates) {
@@ -248,7 +263,7 @@ function v9FlowSet(set: V9FlowSetDesc): { octets: number[]; records: number } {
 }
 
 /** One NetFlow v9 export packet: the 20-octet header (RFC 3954 §5.1) and its FlowSets. */
-export function netflow9Packet(desc: V9PacketDesc): Uint8Array {
+export function netflow9Packet(desc: V9PacketDesc): Uint8Array<ArrayBuffer> {
   const sets = desc.flowSets.map(v9FlowSet);
   const b = new Bytes();
   const count = desc.count ?? sets.reduce((sum, s) => sum + s.records, 0);
