@@ -1,6 +1,6 @@
 /**
  * Cutting IPFIX messages out of a byte stream: a TCP transport session (RFC 7011 §10.4) or an
- * IPFIX file (RFC 5655 §5: a file is IPFIX messages back to back). Each message starts with
+ * IPFIX file (RFC 5655: a file is IPFIX messages back to back). Each message starts with
  * its version (10) and its total length in octets (RFC 7011 §3.1), so the next message's
  * extent is known from its first four octets.
  *
@@ -29,7 +29,7 @@ export function frameIpfixMessage(buffer: Uint8Array, offset = 0): Framing {
   if (available < 4) return { status: "incomplete", needed: 4 };
   const version = (buffer[offset] << 8) | buffer[offset + 1];
   if (version !== 10) {
-    return { status: "malformed", reason: `version ${version} is not IPFIX (10); a stream or file holds IPFIX messages only (RFC 7011 §3.1, RFC 5655 §5)` };
+    return { status: "malformed", reason: `version ${version} is not IPFIX (10); a stream or file holds IPFIX messages only (RFC 7011 §3.1, RFC 5655)` };
   }
   const length = (buffer[offset + 2] << 8) | buffer[offset + 3];
   if (length < IPFIX_HEADER_OCTETS) {

@@ -360,7 +360,7 @@ export function decodeFlowRecords(plan: Plan, msg: Uint8Array, start: number, en
  * Reads the Data Records of an options Data Set: packet-sampling announcements
  * (samplingInterval 34 / samplerRandomInterval 50, and NetFlow v9's SAMPLING_INTERVAL /
  * FLOW_SAMPLER_RANDOM_INTERVAL with the same numbers; samplingPacketInterval 305 with
- * samplingPacketSpace 306; samplingSize 309 with samplingPopulation 310, RFC 5477 §8.2) and
+ * samplingPacketSpace 306; samplingSize 309 with samplingPopulation 310, defined by RFC 5477) and
  * systemInitTimeMilliseconds 160. The last announcement wins. Returns false on a
  * variable-length field past the set end.
  */
@@ -396,10 +396,10 @@ export function decodeOptionsRecords(plan: Plan, msg: Uint8Array, start: number,
     }
     // A scale below 1 (or a zero interval) announces no sampling Weir can undo; ignore it.
     if (packetInterval > 0) {
-      ctx.sampledNum = packetInterval + packetSpace; // RFC 5476 §6.5.2.1: select `interval` packets, skip `space`
+      ctx.sampledNum = packetInterval + packetSpace; // RFC 5477 samplingPacketInterval / samplingPacketSpace: select `interval` packets, skip `space`
       ctx.sampledDen = packetInterval;
     } else if (size > 0 && population >= size) {
-      ctx.sampledNum = population; // RFC 5476 §6.5.2.3: `size` out of every `population` packets
+      ctx.sampledNum = population; // RFC 5477 samplingSize / samplingPopulation: `size` packets out of every `population`
       ctx.sampledDen = size;
     } else if (interval >= 1) {
       ctx.sampledNum = interval; // one packet in `interval`

@@ -50,7 +50,10 @@ export type MessageOutcome =
       records: number;
       /** Data records that carried no addresses, protocol, or positive byte and packet counts. */
       unusable: number;
-      /** Data records of this message held for a template not (yet) known. */
+      /**
+       * Data sets of this message held for a template not (yet) known. Sets, not records: how many
+       * records a set holds is known only once its template is.
+       */
       waiting: number;
       /** Held data records of earlier messages decoded now that their template arrived. */
       replayed: number;
@@ -89,9 +92,9 @@ export interface ExporterStats {
   lost: number;
   /** IPFIX sequence numbers count data records, NetFlow v9 ones export packets. */
   lostUnit: "records" | "packets";
-  /** Data records held for a template now. */
+  /** Data sets held for a template now (sets: their record count is unknown until it comes). */
   waiting: number;
-  /** Data records dropped for want of a template (buffer full, too old, session ended). */
+  /** Data sets dropped for want of a template (buffer full, too old, session ended). */
   droppedWaiting: number;
   malformed: number;
   lastError: string | null;
