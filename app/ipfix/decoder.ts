@@ -22,6 +22,7 @@ import {
   parseIpfixTemplateSet, parseV9OptionsFlowSet, parseV9TemplateFlowSet, type TemplateAction, type TemplateDefinition,
 } from "./templates.ts";
 
+export { frameIpfixMessage, type Framing } from "./framing.ts";
 export { RowWriter } from "./row-writer.ts";
 
 /** Templates kept per (session, domain); a new one beyond this is refused (the ids are 256–65535). */
