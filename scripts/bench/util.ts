@@ -9,9 +9,12 @@ import { runMigrations } from "~/db/migrate.server";
 import { createTenant, ensureCollector } from "~/tenants.server";
 
 /** Starts scripts/bench/child.ts on the given database; resolves with its URL once it listens. */
-export function startChildServer(databaseUrl: string): Promise<{ child: ChildProcess; url: string; stop: () => Promise<void> }> {
+export function startChildServer(
+  databaseUrl: string,
+  options: { collect?: boolean } = {},
+): Promise<{ child: ChildProcess; url: string; udpPort?: number; stop: () => Promise<void> }> {
   const child = spawn(process.execPath, ["--import", "tsx", fileURLToPath(new URL("./child.ts", import.meta.url))], {
-    env: { ...process.env, DATABASE_URL: databaseUrl },
+    env: { ...process.env, DATABASE_URL: databaseUrl, BENCH_COLLECT: options.collect ? "1" : "0" },
     stdio: ["ignore", "pipe", "inherit"],
   });
   const stop = () =>
@@ -23,10 +26,10 @@ export function startChildServer(databaseUrl: string): Promise<{ child: ChildPro
   return new Promise((resolve, reject) => {
     child.once("exit", (code) => reject(new Error(`benchmark server exited with ${code}`)));
     createInterface({ input: child.stdout! }).on("line", (line) => {
-      const ready = /^WEIR_BENCH_READY (\S+)$/.exec(line);
+      const ready = /^WEIR_BENCH_READY (\S+)(?: (\d+))?$/.exec(line);
       if (ready) {
         child.removeAllListeners("exit");
-        resolve({ child, url: ready[1], stop });
+        resolve({ child, url: ready[1], udpPort: ready[2] === undefined ? undefined : Number(ready[2]), stop });
       }
     });
   });
