@@ -2,6 +2,8 @@
 // Nothing here is asserted; the goals are printed beside the figures.
 // `npm run bench -- --quick` runs smaller sizes (for a smoke check, not for the README).
 import { benchAccuracy } from "./bench/accuracy";
+import { benchCollect } from "./bench/collect";
+import { benchIpfixDecode } from "./bench/ipfix-decode";
 import { benchIngest } from "./bench/ingest";
 import { benchQuery } from "./bench/query";
 import { benchReservoir } from "./bench/reservoir";
@@ -31,6 +33,27 @@ console.log(`HTTP / ceiling         ${fmt(i.httpRecordsPerSecond / i.ceilingReco
 console.log(`keep everything        ${fmt(i.keepAllRecordsPerSecond, 0)} records/s   (the same records inserted into a plain SQLite table, in process)`);
 console.log(`ingest ratio           ${fmt(i.httpRecordsPerSecond / i.keepAllRecordsPerSecond, 2)}× the keep-everything insert rate`);
 console.log(`on disk                Weir ${mb(i.weirBytes)} (${i.windows} reservoirs) against ${mb(i.keepAllBytes)}: ${fmt(i.keepAllBytes / i.weirBytes, 0)}× smaller`);
+
+section(`IPFIX decode ceiling (one core; 15-field template, 30 records a message, ${fmt(20_000 * scale, 0)} messages, best of 5)`);
+const d = await benchIpfixDecode(Math.round(20_000 * scale));
+console.log(`decoder                ${fmt(d.recordsPerSecond / 1e6, 2)} M records/s, ${fmt(d.nsPerRecord, 0)} ns a record   (goal ≥ 2 M/s)`);
+console.log(`JSON validation        ${fmt(d.jsonRecordsPerSecond / 1e6, 2)} M records/s   (parseFlowBatch on the same records as objects)`);
+console.log(`decode / JSON          ${fmt(d.ratioToJson, 2)}×`);
+
+section(`IPFIX over UDP on loopback, end to end (steady offered rates, ${quick ? 1 : 4} s each; k = 1024, 5-minute windows)`);
+const c = await benchCollect(quick ? [100_000, 250_000] : [250_000, 400_000, 500_000, 600_000, 700_000, 800_000, 1_000_000], quick ? 1 : 4);
+for (const step of c.steps) {
+  console.log(
+    `offered ${fmt(step.offeredPerSecond, 0).padStart(9)}/s   stored ${fmt(step.storedPerSecond, 0).padStart(9)}/s   loss ${fmt(step.lossPercent, 3).padStart(6)}%   (lost per the sequence numbers: ${fmt(step.reportedLost, 0)})`,
+  );
+}
+if (c.best) {
+  console.log(`highest lossless rate  ${fmt(c.best.offeredPerSecond, 0)} records/s with < 0.1% loss, ${fmt(c.best.storedPerSecond, 0)} stored/s   (goal ≥ 500 000)`);
+  console.log(`UDP / JSON over HTTP   ${fmt(c.best.storedPerSecond / i.httpRecordsPerSecond, 2)}×   (the HTTP ingest figure above; goal ≥ 2×)`);
+} else {
+  console.log("highest lossless rate  none of the offered rates stayed under 0.1% loss");
+}
+console.log(`messages               ${c.recordsPerMessage} records, ${c.bytesPerMessage} bytes each; the sender shares the two cores with the server`);
 
 section(`Query latency (one day: 288 windows × k = 1024 from ${fmt(10 * scale, 0)} million records; CIDR filter + group by destination /24)`);
 const q = await benchQuery(10_000_000 * scale);

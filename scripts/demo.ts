@@ -63,9 +63,27 @@ console.log(
     "Live traffic for the console:",
     `  npm run replay -- --url ${server.url} --key ${DEMO_RIVERLINE_KEY} --rate 2000`,
     "",
+    ...collectionLines(),
+    "",
     "Ctrl-C stops the server.",
     "",
   ].join("\n"),
 );
 
 closeOnSignals(server);
+
+/** The native-collection listeners and an exporter to try them with (the seed claims 127.0.0.1). */
+function collectionLines(): string[] {
+  const { ipfixUdp, netflowUdp, ipfixTcp } = server.collection.ports;
+  if (ipfixUdp === undefined && netflowUdp === undefined && ipfixTcp === undefined) return ["Native collection: listeners off (IPFIX_UDP_PORT, NETFLOW_UDP_PORT, IPFIX_TCP_PORT are 0)."];
+  const host = server.env.COLLECT_HOST ?? server.env.HOST;
+  return [
+    `Native collection: IPFIX/UDP ${ipfixUdp ?? "off"}, NetFlow v9/UDP ${netflowUdp ?? "off"}, IPFIX/TCP ${ipfixTcp ?? "off"} on ${host}; 127.0.0.1 is claimed for riverline/lab-probe.`,
+    ...(ipfixUdp === undefined
+      ? []
+      : [
+          `  npm run export-ipfix -- --to 127.0.0.1:${ipfixUdp} --rate 500                      # an exporter the demo claimed`,
+          `  npm run export-ipfix -- --to 127.0.0.1:${ipfixUdp} --from 127.0.0.2 --duration 10  # an unclaimed one (Exporters page, admins)`,
+        ]),
+  ];
+}

@@ -12,6 +12,7 @@ import { apiKeys, tenants } from "~/db/schema.server";
 import { loadEnv } from "~/env.server";
 import { ReservoirManager } from "~/ingest/manager.server";
 import type { FlowRecord } from "~/flow/record";
+import { claimExporter } from "~/exporters/claims.server";
 import { createMerge } from "~/merges/merges.server";
 import { seededUniform } from "~/sampling/uniform";
 import { createTenant, ensureCollector } from "~/tenants.server";
@@ -21,6 +22,13 @@ import { DEMO_TENANTS, SITES, dayOfFlows } from "./scenario";
 
 /** Seeds the scenario's flows; any fixed number does. */
 export const SCENARIO_SEED = 1;
+/** Exporters claimed in the demo (see the claims above the totals in seedDemo). */
+const DEMO_CLAIMS: readonly { tenant: string; collector: string; cidr: string; domain?: number }[] = [
+  { tenant: "riverline", collector: "pop-north", cidr: "192.0.2.1" },
+  { tenant: "riverline", collector: "pop-south", cidr: "192.0.2.2", domain: 7 },
+  { tenant: "riverline", collector: "lab-probe", cidr: "127.0.0.1" },
+];
+
 /** The demo merge of riverline's two PoPs. */
 export const DEMO_MERGE = "both-pops";
 /** Seeds the priorities u_i, so the kept samples are the same on every run too. */
@@ -136,6 +144,14 @@ export async function seedDemo(db: Db, options: SeedOptions): Promise<SeedResult
     const collector = await ensureCollector(db, tenant.id, demo.collector);
     await createApiKey(db, { tenantId: tenant.id, collectorId: collector.id, scopes: scopesFor(demo.scope), createdBy: "seed (demo data)", key: demo.key });
   }
+  // Exporter claims: the PoP routers (documentation addresses; nothing sends from them in the
+  // demo) and this machine's loopback for a lab probe, so `npm run export-ipfix -- --to
+  // 127.0.0.1:4739` or softflowd on this machine feeds riverline's lab-probe.
+  for (const claim of DEMO_CLAIMS) {
+    await claimExporter(db, { tenantId: made.get(claim.tenant)!.id, collector: claim.collector, cidr: claim.cidr, domainId: claim.domain ?? null, actor: { id: null, label: "seed (demo data)" } });
+  }
+  log(`Exporter claims: ${DEMO_CLAIMS.map((c) => `${c.cidr}${c.domain === undefined ? "" : ` domain ${c.domain}`} → ${c.tenant}/${c.collector}`).join("; ")}`);
+
   const total = result.collectors.reduce((sum, c) => sum + c.records, 0);
   log(`Seeded ${total.toLocaleString("en-US")} flow records in ${((performance.now() - startedAt) / 1000).toFixed(1)} s. Events worth slicing:`);
   for (const event of SITES.flatMap((site) => site.events)) log(`  ${event.description}`);

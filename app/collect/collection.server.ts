@@ -8,6 +8,7 @@ import { claimsFingerprint, loadClaimIndex } from "~/exporters/claims.server";
 import type { ClaimIndex } from "~/exporters/claim-index";
 import type { ReservoirManager, TenantSampling } from "~/ingest/manager.server";
 import { KEPT_ROW_BYTES } from "~/ingest/kept-codec";
+import { frameIpfixMessage } from "~/ipfix/framing";
 import type { CollectTransport, ExporterStats } from "~/ipfix/types";
 import type { Logger } from "~/logger.server";
 import { parseAddress } from "~/net/address";
@@ -95,7 +96,6 @@ const WORKER_URL = new URL("./decode-worker-entry.mjs", import.meta.url);
 const CHUNK_BYTES = 256 * 1024;
 const CHUNK_DELAY_MS = 5;
 const MAX_TCP_CONNECTIONS = 1024;
-const IPFIX_HEADER_BYTES = 16;
 const TENANT_CACHE_MS = 5000;
 const DEFAULT_STATS_INTERVAL_MS = 5000;
 const DEFAULT_CLAIMS_INTERVAL_MS = 2000;
@@ -332,19 +332,17 @@ export class Collection {
     socket.setKeepAlive(true, 60_000);
     socket.on("data", (data) => {
       pending = pending.length === 0 ? data : Buffer.concat([pending, data]);
-      while (pending.length >= 4) {
-        const version = pending.readUInt16BE(0);
-        const length = pending.readUInt16BE(2);
-        if (version !== 10 || length < IPFIX_HEADER_BYTES) {
-          const reason = version !== 10 ? `TCP stream: version ${version} where an IPFIX message (10) should start; connection closed` : `TCP stream: message length ${length} is shorter than the 16-byte header; connection closed`;
-          this.countMalformed(exporter, pending.length >= 16 ? pending.readUInt32BE(12) : -1, "ipfix-tcp", reason);
+      for (;;) {
+        const framing = frameIpfixMessage(pending);
+        if (framing.status === "incomplete") break;
+        if (framing.status === "malformed") {
+          this.countMalformed(exporter, pending.length >= 16 ? pending.readUInt32BE(12) : -1, "ipfix-tcp", `TCP stream: ${framing.reason}; connection closed`);
           socket.destroy();
           return;
         }
-        if (pending.length < length) break;
         this.counters.tcpMessages++;
-        this.receive("ipfix-tcp", session, exporter, pending.subarray(0, length));
-        pending = pending.subarray(length);
+        this.receive("ipfix-tcp", session, exporter, pending.subarray(0, framing.length));
+        pending = pending.subarray(framing.length);
       }
     });
     socket.on("error", () => socket.destroy());

@@ -9,7 +9,7 @@ export interface DecodedGroup {
   domain: number;
   rows: number;
   messages: number;
-  /** Data records of these messages that had to wait for their template. */
+  /** Data sets of these messages that had to wait for their template. */
   waited: number;
 }
 

@@ -147,3 +147,59 @@ export function ConfirmRow({
     </tr>
   );
 }
+
+/**
+ * A collector name: type a new one or pick an existing one from the list the browser offers.
+ * `onType` runs on every change, so a form can check the name as it is typed.
+ */
+export function CollectorNameInput({
+  id,
+  value,
+  onType,
+  collectors,
+  invalid,
+  placeholder,
+  required = false,
+}: {
+  id: string;
+  value: string;
+  onType: (value: string) => void;
+  collectors: readonly string[];
+  invalid: boolean;
+  placeholder: string;
+  required?: boolean;
+}) {
+  return (
+    <>
+      <input
+        id={id}
+        name="collector"
+        list={`${id}-list`}
+        required={required}
+        value={value}
+        onChange={(e) => onType(e.target.value)}
+        autoComplete="off"
+        spellCheck={false}
+        placeholder={placeholder}
+        aria-invalid={invalid ? true : undefined}
+        className={`${inputClass} font-mono`}
+      />
+      <datalist id={`${id}-list`}>
+        {collectors.map((c) => (
+          <option key={c} value={c} />
+        ))}
+      </datalist>
+    </>
+  );
+}
+
+/** An age in words, measured on the server's clock. @example age(600_000, 0) // "10 min ago" */
+export function age(now: number, then: number): string {
+  const s = Math.max(0, Math.round((now - then) / 1000));
+  if (s < 90) return `${s} s ago`;
+  const min = Math.round(s / 60);
+  if (min < 90) return `${min} min ago`;
+  const h = Math.round(min / 60);
+  if (h < 48) return `${h} h ago`;
+  return `${Math.round(h / 24)} days ago`;
+}

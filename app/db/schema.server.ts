@@ -372,9 +372,9 @@ export const exporters = sqliteTable(
     /** Records lost in transport per the sequence numbers (IPFIX: data records; v9: export packets, see lostUnit). */
     lost: integer("lost").notNull().default(0),
     lostUnit: text("lost_unit").notNull().default("records"),
-    /** Data records that arrived before their template (held, then decoded when it came, or dropped). */
+    /** Data sets that arrived before their template (held, then decoded when it came, or dropped); sets, since a set's record count is unknown without its template. */
     waiting: integer("waiting").notNull().default(0),
-    /** Of those, records dropped because the template never came in time (buffer bounds, age, session end). */
+    /** Of those, sets dropped because the template never came in time (buffer bounds, age, session end). */
     droppedWaiting: integer("dropped_waiting").notNull().default(0),
     /** Messages dropped as malformed; the last reason in lastError. */
     malformed: integer("malformed").notNull().default(0),

@@ -1,5 +1,6 @@
 import { ApiError } from "~/auth/api-keys.server";
 import { FlowDecoder } from "~/ipfix/decoder";
+import { frameIpfixMessage } from "~/ipfix/framing";
 import { RowWriter } from "~/ipfix/row-writer";
 import type { PackedFlows } from "./kept-codec";
 
@@ -16,8 +17,6 @@ export interface IpfixFileSummary {
   enterpriseElements: { enterprise: number; id: number; count: number }[];
 }
 
-const IPFIX_VERSION = 10;
-const HEADER_BYTES = 16;
 const MAX_DETAILS = 100;
 
 /**
@@ -43,7 +42,7 @@ export function parseIpfixFile(bytes: Uint8Array, maxRecords: number): { packed:
       details.push({ index: messages, path: `byte ${offset}`, message: problem });
       break; // the next message cannot be found once a length is wrong
     }
-    const length = (bytes[offset + 2] << 8) | bytes[offset + 3];
+    const length = (bytes[offset + 2] << 8) | bytes[offset + 3]; // framed above
     const outcome = decoder.decode(source, bytes.subarray(offset, offset + length), writer);
     if (outcome.status === "dropped") {
       invalidCount++;
@@ -64,7 +63,7 @@ export function parseIpfixFile(bytes: Uint8Array, maxRecords: number): { packed:
     details.push({
       index: messages,
       path: "end of file",
-      message: `${waiting} data record${waiting === 1 ? "" : "s"} (or sets) refer to templates the file does not define before them (RFC 5655 §8: a file carries its templates)`,
+      message: `${waiting} data set${waiting === 1 ? "" : "s"} refer to templates the file does not define before them (RFC 5655 §8: a file carries its templates)`,
     });
   }
   if (invalidCount > 0) {
@@ -97,18 +96,13 @@ export function parseIpfixFile(bytes: Uint8Array, maxRecords: number): { packed:
   };
 }
 
-/** Why no IPFIX message starts at `offset`, or null when its header and length fit. */
+/** Why no IPFIX message starts at `offset`, or null when one does (RFC 7011 §3.1 header, RFC 5655 files). */
 function framingProblem(bytes: Uint8Array, offset: number): string | null {
+  const framing = frameIpfixMessage(bytes, offset);
+  if (framing.status === "message") return null;
   const left = bytes.byteLength - offset;
-  if (left < HEADER_BYTES) return `${left} byte${left === 1 ? "" : "s"} left, too few for an IPFIX message header (16 bytes): the file is truncated`;
-  const version = (bytes[offset] << 8) | bytes[offset + 1];
-  if (version !== IPFIX_VERSION) {
-    return version === 9
-      ? "version 9 is NetFlow v9, which has no file format; send it to the NetFlow v9 UDP listener"
-      : `version ${version} where an IPFIX message (version 10, RFC 7011 §3.1) should start: not an IPFIX file, or corrupted`;
-  }
-  const length = (bytes[offset + 2] << 8) | bytes[offset + 3];
-  if (length < HEADER_BYTES) return `message length ${length} is shorter than the 16-byte header`;
-  if (length > left) return `message length ${length} runs past the end of the file (${left} bytes left): the file is truncated`;
-  return null;
+  if (framing.status === "incomplete") return `the file ends ${left} byte${left === 1 ? "" : "s"} into a message of ${framing.needed === 4 ? "unknown length" : `${framing.needed} bytes`}: it is truncated`;
+  // NetFlow v9 has no file form: say where such data belongs.
+  if (left >= 2 && bytes[offset] === 0 && bytes[offset + 1] === 9) return "version 9 is NetFlow v9, which has no file format; send it to the NetFlow v9 UDP listener";
+  return framing.reason;
 }

@@ -5,7 +5,7 @@ import { requireMember } from "~/auth/guards.server";
 import { roleAtLeast } from "~/auth/users.server";
 import { ClaimedExportersTable } from "~/components/exporters/ClaimedExporters";
 import { UnclaimedExportersTable } from "~/components/exporters/UnclaimedExporters";
-import { Button, ConfirmRow, EmptyState, ErrorState, Field, inputClass, LoadingState, PageHeader, Panel } from "~/components/ui";
+import { Button, CollectorNameInput, ConfirmRow, EmptyState, ErrorState, Field, inputClass, LoadingState, PageHeader, Panel } from "~/components/ui";
 import { claimExporter, claimRefusal, exporterActionSchema, releaseExporter } from "~/exporters/claims.server";
 import { claimDomainLabel, describeClaim } from "~/exporters/format";
 import { collectorNameRule, listCollectorNames } from "~/keys/keys.server";
@@ -314,27 +314,18 @@ function ClaimForm({
           error={collectorError}
           hint={name === "" ? "An existing collector or a new name." : collectors.includes(name) ? `Existing collector ${name}.` : `New collector: ${name} is created with the claim.`}
         >
-          <input
+          <CollectorNameInput
             id="claim-collector"
-            name="collector"
-            list="claim-collectors"
             required
             value={collector}
-            onChange={(e) => {
-              setCollector(e.target.value);
+            onType={(value) => {
+              setCollector(value);
               setTouched(true);
             }}
-            autoComplete="off"
-            spellCheck={false}
+            collectors={collectors}
+            invalid={Boolean(collectorError)}
             placeholder="e.g. pop-north"
-            aria-invalid={collectorError ? true : undefined}
-            className={`${inputClass} font-mono`}
           />
-          <datalist id="claim-collectors">
-            {collectors.map((c) => (
-              <option key={c} value={c} />
-            ))}
-          </datalist>
         </Field>
         <div className="lg:pt-6">
           <Button type="submit" disabled={claiming}>

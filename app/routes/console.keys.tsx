@@ -3,7 +3,7 @@ import { data, Form, Link, useNavigation, useSearchParams } from "react-router";
 import { createApiKey, revokeApiKey, scopesFor } from "~/auth/api-keys.server";
 import { requireMember } from "~/auth/guards.server";
 import { recordAudit } from "~/audit.server";
-import { Button, ConfirmRow, EmptyState, ErrorState, Field, inputClass, PageHeader, Panel } from "~/components/ui";
+import { Button, CollectorNameInput, ConfirmRow, EmptyState, ErrorState, Field, inputClass, PageHeader, Panel } from "~/components/ui";
 import { collectorNameRule, findTenantKey, keyActionSchema, listCollectorNames, listTenantKeys, type KeyRow } from "~/keys/keys.server";
 import { SCOPE_CHOICES, SCOPE_HELP, scopeLabel, type ScopeChoice } from "~/keys/scope";
 import { SecretOnce } from "~/keys/SecretOnce";
@@ -218,26 +218,17 @@ function CreateKeyForm({
             </>
           }
         >
-          <input
+          <CollectorNameInput
             id="key-collector"
-            name="collector"
-            list="key-collectors"
             value={collector}
-            onChange={(e) => {
-              setCollector(e.target.value);
+            onType={(value) => {
+              setCollector(value);
               setTouched(true);
             }}
-            autoComplete="off"
-            spellCheck={false}
+            collectors={collectors}
+            invalid={Boolean(shownError)}
             placeholder="e.g. pop-west"
-            aria-invalid={shownError ? true : undefined}
-            className={`${inputClass} font-mono`}
           />
-          <datalist id="key-collectors">
-            {collectors.map((c) => (
-              <option key={c} value={c} />
-            ))}
-          </datalist>
         </Field>
         <fieldset className="flex flex-col gap-2">
           <legend className="mb-1 text-sm font-medium text-river-100">Scope</legend>

@@ -49,7 +49,7 @@ export default function Ledger() {
     <>
       <PageHeader
         title="Ledger"
-        lead={<>Who did what in {view.tenant.name}, and when: changes to members, invitations, keys and settings, merges, sample-file imports and roll-up runs, and the sign-ins of current members. Newest first; times in UTC.</>}
+        lead={<>Who did what in {view.tenant.name}, and when: changes to members, invitations, keys and settings, exporter claims and releases, merges, sample-file and IPFIX-file uploads and roll-up runs, and the sign-ins of current members. Newest first; times in UTC.</>}
       />
       <div className="grid gap-6">
         <Panel title="Filter">

@@ -2,6 +2,7 @@
 // (RFC 3954) sent over UDP and TCP on loopback reach the collector their exporter is claimed
 // for, with exact counters equal to what was sent; unclaimed exporters feed nobody, and one
 // tenant's exporter never feeds another.
+import { connect } from "node:net";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { claimExporter } from "~/exporters/claims.server";
 import { startTestServer, tenantWithKey, type TestServer } from "../helpers/server";
@@ -98,6 +99,19 @@ describe("native collection listeners", () => {
     const truth = [...udpFlows, ...tcpFlows].filter((f) => f.dport === 443).reduce((s, f) => s + f.bytes, 0);
     expect(answer.estimate).toBe(truth);
     expect(answer.stdError).toBe(0);
+  });
+
+  it("closes a TCP stream that stops being IPFIX and counts it malformed for that exporter (RFC 7011 §10.4: no way to find the next message)", async () => {
+    const socket = connect({ port: t.server.collection.ports.ipfixTcp!, host: "127.0.0.1", localAddress: "127.0.0.4" });
+    await new Promise<void>((resolve, reject) => socket.once("connect", resolve).once("error", reject));
+    const closed = new Promise<void>((resolve) => socket.once("close", () => resolve()));
+    socket.on("error", () => undefined);
+    socket.write("GET / HTTP/1.1\r\nHost: not-ipfix\r\n\r\n");
+    await closed;
+    await t.server.collection.drain();
+    const { rows } = await t.server.db.$client.execute("SELECT transport, malformed, last_error FROM exporters WHERE address = '127.0.0.4'");
+    expect(rows.map((r) => [r.transport, Number(r.malformed)])).toEqual([["ipfix-tcp", 1]]);
+    expect(String(rows[0].last_error)).toMatch(/not IPFIX/);
   });
 
   it("writes exporter statistics: messages, records and the templates seen (RFC 7011 §8)", async () => {

@@ -22,6 +22,8 @@ const PAGES: [path: string, least: Role][] = [
   ["/t/matrix/slice", "viewer"],
   ["/t/matrix/intake", "viewer"],
   ["/t/matrix/intake-data", "viewer"],
+  ["/t/matrix/exporters", "viewer"],
+  ["/t/matrix/exporters-data", "viewer"],
   ["/t/matrix/merge", "engineer"],
   ["/t/matrix/keys", "admin"],
   ["/t/matrix/people", "admin"],
@@ -32,6 +34,8 @@ const FORMS: [path: string, least: Role][] = [
   ["/t/matrix/merge", "engineer"],
   // The sample-file upload takes multipart; the URL-encoded body below is refused (4xx) once the gate lets it through.
   ["/t/matrix/merge/upload", "engineer"],
+  // Claims and releases of exporters.
+  ["/t/matrix/exporters", "admin"],
   ["/t/matrix/keys", "admin"],
   ["/t/matrix/people", "admin"],
   ["/t/matrix/settings", "admin"],

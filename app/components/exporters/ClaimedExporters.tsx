@@ -1,6 +1,7 @@
 import type { ClaimedExporter } from "~/exporters/claims.server";
 import { claimDomainLabel, observedDomainLabel, transportLabel } from "~/exporters/format";
 import { formatUtc } from "~/slice/format";
+import { age } from "~/components/ui";
 
 /** A rate older than this is not shown as current: the exporter has gone quiet. */
 const RATE_FRESH_MS = 60_000;
@@ -8,16 +9,6 @@ const RATE_FRESH_MS = 60_000;
 const count = (n: number) => n.toLocaleString("en-US");
 const rate = (perSecond: number) => perSecond.toLocaleString("en-US", { minimumFractionDigits: 1, maximumFractionDigits: 1 });
 
-/** An age in words, measured on the server's clock. */
-export function age(now: number, then: number): string {
-  const s = Math.max(0, Math.round((now - then) / 1000));
-  if (s < 90) return `${s} s ago`;
-  const min = Math.round(s / 60);
-  if (min < 90) return `${min} min ago`;
-  const h = Math.round(min / 60);
-  if (h < 48) return `${h} h ago`;
-  return `${Math.round(h / 24)} days ago`;
-}
 
 /**
  * The exporters that feed the tenant: per (address, observation domain, transport), the
@@ -30,7 +21,7 @@ export function ClaimedExportersTable({ exporters, now }: { exporters: ClaimedEx
       <div className="overflow-x-auto">
         <table className="w-full min-w-[72rem] text-sm">
           <caption className="sr-only">
-            Exporters feeding this tenant's collectors: records per second, records decoded, records lost in transport, records that waited for a template,
+            Exporters feeding this tenant's collectors: records per second, records decoded, records lost in transport, data sets that waited for a template,
             malformed messages, unusable records, announced sampling, templates and enterprise elements, first and last seen
           </caption>
           <thead className="border-b border-river-700 text-left text-xs text-river-300">
@@ -85,8 +76,8 @@ export function ClaimedExportersTable({ exporters, now }: { exporters: ClaimedEx
       </div>
       <p className="text-xs text-river-300">
         Lost: gaps in the exporter's sequence numbers (IPFIX counts data records, NetFlow v9 counts export packets); an exporter's restart is not counted.
-        Waited: data records that arrived before their template (decoded when it came; the dropped ones are counted apart). Unusable: records without addresses,
-        protocol or a positive byte count, not stored.
+        Waited: data sets (groups of records) that arrived before their template, held up to a minute and decoded when it came; the dropped ones are counted apart. Unusable: records without addresses,
+        protocol, or positive byte and packet counts, not stored.
         {scaled.length > 0
           ? ` ${scaled.length} of ${exporters.length} announce packet sampling: their byte and packet counters are multiplied by the interval before sampling, so estimates stand for the traffic, not the sampled packets.`
           : " No exporter announces packet sampling: counters are taken as sent."}{" "}
@@ -125,7 +116,7 @@ function ExporterRow({ e, now }: { e: ClaimedExporter; now: number }) {
       </td>
       <td
         className="py-2 pr-3 text-right font-mono"
-        title={`${count(e.waiting)} records arrived before their template; ${count(e.droppedWaiting)} of them were dropped because it did not come in time`}
+        title={`${count(e.waiting)} data sets arrived before their template; ${count(e.droppedWaiting)} of them were dropped because it did not come in time`}
       >
         <span className={e.droppedWaiting > 0 ? "text-sand-200" : "text-river-100"}>{count(e.waiting)}</span>
         {e.droppedWaiting > 0 ? <span className="block font-sans text-xs text-sand-200">{count(e.droppedWaiting)} dropped</span> : null}

@@ -1,9 +1,8 @@
 import { Form, useNavigation } from "react-router";
-import { Button, inputClass } from "~/components/ui";
+import { age, Button, inputClass } from "~/components/ui";
 import type { UnclaimedExporter } from "~/exporters/claims.server";
 import { observedDomainLabel, transportLabel } from "~/exporters/format";
 import { formatUtc } from "~/slice/format";
-import { age } from "./ClaimedExporters";
 
 const count = (n: number) => n.toLocaleString("en-US");
 

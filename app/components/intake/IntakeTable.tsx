@@ -1,18 +1,9 @@
 import type { CollectorSources, IntakeCollector, IntakeSnapshot, OpenReservoir, SourceUse } from "~/routes/console.intake-data";
 import { counterValue, exactMetric, formatBytes, formatMetric, formatUtc } from "~/slice/format";
+import { age } from "~/components/ui";
 
 const timeOfDay = (ms: number) => new Date(ms).toISOString().slice(11, 16);
 
-/** An age in words, measured on the server's clock. */
-function age(now: number, then: number): string {
-  const s = Math.max(0, Math.round((now - then) / 1000));
-  if (s < 90) return `${s} s ago`;
-  const min = Math.round(s / 60);
-  if (min < 90) return `${min} min ago`;
-  const h = Math.round(min / 60);
-  if (h < 48) return `${h} h ago`;
-  return `${Math.round(h / 24)} days ago`;
-}
 
 const rate = (perSecond: number) => perSecond.toLocaleString("en-US", { minimumFractionDigits: 1, maximumFractionDigits: 1 });
 

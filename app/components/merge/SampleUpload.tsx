@@ -1,5 +1,7 @@
 import { useId, useRef, useState, type FormEvent } from "react";
 import { useRevalidator } from "react-router";
+// A type only: erased from the client bundle.
+import type { IpfixUploadSummary } from "~/ingest/ipfix-upload.server";
 import { Button, Cautions, Field, Panel, inputClass } from "../ui";
 
 /** What the upload route answers on success (see app/samples/import.server.ts). */
@@ -11,17 +13,6 @@ export interface UploadSummary {
   records: number | string;
   from: string | null;
   to: string | null;
-}
-
-/** What the upload route answers for an IPFIX file (see app/ingest/ipfix-upload.server.ts). */
-export interface IpfixUploadSummary {
-  kind: "ipfix";
-  collector: string;
-  accepted: number;
-  windows: number;
-  from: string | null;
-  to: string | null;
-  ipfix: { messages: number; records: number; unusable: number; samplingInterval: number | null; enterpriseElements: { enterprise: number; id: number; count: number }[] };
 }
 
 interface UploadError {
