@@ -1,5 +1,8 @@
+import { execFile } from "node:child_process";
 import { writeFileSync } from "node:fs";
 import { join } from "node:path";
+import { fileURLToPath } from "node:url";
+import { promisify } from "node:util";
 import { afterAll, beforeAll, describe, expect, it, vi } from "vitest";
 import { ensureUserByEmail, setMembership } from "~/auth/users.server";
 import { flowRecordToJson } from "~/flow/record";
@@ -109,6 +112,25 @@ describe("the Merge page in a browser", () => {
     expect(result).toMatch(/6/);
     // The page reloads its data: the new collector can be merged at once.
     await page.getByRole("checkbox", { name: "pop-a-archive" }).waitFor({ timeout: 10_000 });
+    expect(errors, errors.join("\n")).toEqual([]);
+    await context.close();
+  });
+
+  it("uploads an IPFIX file (RFC 5655) into a collector and shows what the file held", async () => {
+    // Written by the demo's exporter script; the records are the demo scenario's invented flows.
+    const path = join(t.dir, "probe.ipfix");
+    await promisify(execFile)(process.execPath, ["--import", "tsx", fileURLToPath(new URL("../../scripts/export-ipfix.ts", import.meta.url)), "--file", path, "--records", "400"]);
+    const { context, page, errors } = await signInWithBrowser(b.browser, t.url, "eli-engineer");
+    await page.goto("/t/riverline/merge");
+    await page.getByLabel("Collector", { exact: true }).fill("probe-file");
+    await page.getByLabel("File", { exact: true }).setInputFiles(path);
+    await page.getByRole("button", { name: "Upload" }).click();
+    await page.getByText("IPFIX file sampled into collector “probe-file”.").waitFor({ timeout: 30_000 });
+    const result = await page.getByText("flow records stored").locator("..").innerText();
+    expect(result).toMatch(/400/);
+    expect(await page.getByText("messages", { exact: true }).locator("..").innerText()).toMatch(/16/);
+    const { rows } = await t.server.db.$client.execute("SELECT sum(r.records) AS n FROM reservoirs r JOIN collectors c ON c.id = r.collector_id WHERE c.name = 'probe-file'");
+    expect(Number(rows[0].n)).toBe(400);
     expect(errors, errors.join("\n")).toEqual([]);
     await context.close();
   });
