@@ -1,7 +1,7 @@
 // Runs once before the test files. Some tests drive Debian programs: browser tests drive
 // chromium through playwright-core (Playwright's own browser download cannot work here), and
 // the IPFIX / NetFlow tests use softflowd as a real exporter with tshark and ipfixDump as
-// reference decoders. CI machines start without them, so install whichever is missing with
+// reference decoders, and python3-ipfix's element table and encoder as references. CI machines start without them, so install whichever is missing with
 // apt-get (one update, one install).
 import { execSync } from "node:child_process";
 import { existsSync } from "node:fs";
@@ -10,12 +10,15 @@ export const CHROMIUM = "/usr/bin/chromium";
 export const SOFTFLOWD = "/usr/sbin/softflowd";
 export const TSHARK = "/usr/bin/tshark";
 export const IPFIXDUMP = "/usr/bin/ipfixDump";
+/** Debian's python3-ipfix: its IANA element table and encoder are references (tests/ipfix/debian.ts). */
+export const PYTHON_IPFIX = "/usr/lib/python3/dist-packages/ipfix/iana.iespec";
 
 const DEBIAN_PACKAGES: { path: string; name: string }[] = [
   { path: CHROMIUM, name: "chromium" },
   { path: SOFTFLOWD, name: "softflowd" },
   { path: TSHARK, name: "tshark" },
   { path: IPFIXDUMP, name: "libfixbuf-tools" },
+  { path: PYTHON_IPFIX, name: "python3-ipfix" },
 ];
 
 export default function setup(): void {

@@ -1,5 +1,6 @@
-// Debian's python3-ipfix serves as a reference (its IANA element table, its encoder). Like the
-// browser tests with chromium, a machine without it gets it from apt-get.
+// Debian's python3-ipfix serves as a reference (its IANA element table, its encoder). The test
+// set-up (tests/global-setup.ts) installs it with apt-get when missing, as it does chromium; this
+// installs it only when a test file runs without that set-up.
 import { execFileSync, execSync } from "node:child_process";
 import { existsSync } from "node:fs";
 
