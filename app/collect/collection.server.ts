@@ -167,6 +167,16 @@ export class Collection {
     return collection;
   }
 
+  /**
+   * For /healthz: the listeners' ports, whether the decode worker runs ("off" without
+   * listeners), and the counters since start. Not healthy when listeners were asked for and
+   * the worker has died: nothing received would be decoded.
+   */
+  health(): { healthy: boolean; worker: "running" | "stopped" | "off"; ports: CollectionPorts; bufferedRecords: number; counters: CollectionCounters } {
+    const worker = !this.worker ? "off" : this.workerGone ? "stopped" : "running";
+    return { healthy: worker !== "stopped" || this.closed, worker, ports: { ...this.ports }, bufferedRecords: this.bufferedRecords, counters: { ...this.counters } };
+  }
+
   /** Reloads the exporter claims now (after a claim or release in this process). */
   async reloadClaims(): Promise<void> {
     const [index, print] = await Promise.all([loadClaimIndex(this.options.db), claimsFingerprint(this.options.db)]);

@@ -114,6 +114,17 @@ describe("native collection listeners", () => {
     expect(String(rows[0].last_error)).toMatch(/not IPFIX/);
   });
 
+  it("reports the listeners, the decode worker and their counters on /healthz", async () => {
+    const res = await fetch(`${t.url}/healthz`);
+    expect(res.status).toBe(200);
+    const body = (await res.json()) as { ok: boolean; collection: { worker: string; ports: Record<string, number>; counters: { rowsStored: number; rowsUnclaimed: number } } };
+    expect(body.ok).toBe(true);
+    expect(body.collection.worker).toBe("running");
+    expect(body.collection.ports).toEqual(t.server.collection.ports);
+    expect(body.collection.counters.rowsStored).toBe(udpFlows.length + tcpFlows.length + v9Flows.length);
+    expect(body.collection.counters.rowsUnclaimed).toBe(strayFlows.length);
+  });
+
   it("writes exporter statistics: messages, records and the templates seen (RFC 7011 §8)", async () => {
     const { rows } = await t.server.db.$client.execute(
       "SELECT address, domain_id, transport, messages, records, lost, malformed, templates FROM exporters WHERE address IN ('127.0.0.1', '127.0.0.2') ORDER BY transport",
@@ -128,5 +139,22 @@ describe("native collection listeners", () => {
     const templates = JSON.parse(String(byTransport["ipfix-udp"].templates)) as { id: number; fields: string[] }[];
     expect(templates.map((tpl) => tpl.id)).toEqual([256]);
     expect(templates[0].fields).toContain("octetDeltaCount");
+  });
+});
+
+describe("health when the decode worker is gone", () => {
+  it("answers 503 on /healthz: listeners are configured but nothing would be decoded", async () => {
+    const t = await startTestServer({ collect: { ipfixUdpPort: 0 } });
+    try {
+      expect((await fetch(`${t.url}/healthz`)).status).toBe(200);
+      // The worker dies as a crash would end it (what is asserted is the answer, not the cause).
+      await (t.server.collection as unknown as { worker: { terminate(): Promise<number> } }).worker.terminate();
+      await waitFor(() => t.server.collection.health().worker === "stopped", "the worker to be seen stopped");
+      const res = await fetch(`${t.url}/healthz`);
+      expect(res.status).toBe(503);
+      expect(((await res.json()) as { collection: { worker: string } }).collection.worker).toBe("stopped");
+    } finally {
+      await t.close();
+    }
   });
 });

@@ -43,7 +43,10 @@ describe("server (development mode, Vite middleware)", () => {
     const res = await fetch(`${server.url}/healthz`);
     expect(res.status).toBe(200);
     expect(res.headers.get("cache-control")).toBe("no-store");
-    expect(await res.json()).toEqual({ ok: true, node: "smoke-node", db: "ok" });
+    const body = await res.json();
+    expect(body).toMatchObject({ ok: true, node: "smoke-node", db: "ok" });
+    // Every listener is off here: no decode worker runs.
+    expect(body.collection).toMatchObject({ healthy: true, worker: "off", ports: {} });
   });
 
   it("answers an unknown path with a 404 page from the shared error panel", async () => {
