@@ -4,7 +4,7 @@ import { Worker } from "node:worker_threads";
 import { coordinationKeyOf } from "~/auth/api-keys.server";
 import type { Db } from "~/db/client.server";
 import type { IngestSource } from "~/db/schema.server";
-import { claimsFingerprint, loadClaimIndex } from "~/exporters/claims.server";
+import { claimsFingerprint, EXPORTER_ROWS_KEPT_MS, loadClaimIndex, MAX_EXPORTER_ROWS } from "~/exporters/claims.server";
 import type { ClaimIndex } from "~/exporters/claim-index";
 import type { ReservoirManager, TenantSampling } from "~/ingest/manager.server";
 import { KEPT_ROW_BYTES } from "~/ingest/kept-codec";
@@ -557,8 +557,13 @@ export class Collection {
     const changes = [...this.deltas.values()];
     this.deltas.clear();
     const quiet = { sql: "UPDATE exporters SET records_per_second = 0 WHERE records_per_second > 0 AND last_seen_at < ?", args: [now - 2 * elapsedSeconds * 1000] };
+    // Bounded: exporters long silent are forgotten, and spoofed sources cannot grow the table past its cap.
+    const prune = [
+      { sql: "DELETE FROM exporters WHERE last_seen_at < ?", args: [now - EXPORTER_ROWS_KEPT_MS] },
+      { sql: "DELETE FROM exporters WHERE id NOT IN (SELECT id FROM exporters ORDER BY last_seen_at DESC LIMIT ?)", args: [MAX_EXPORTER_ROWS] },
+    ];
     await this.options.db.$client.batch(
-      [quiet, ...changes.map((d) => ({
+      [quiet, ...prune, ...changes.map((d) => ({
         sql: `INSERT INTO exporters (address, domain_id, transport, first_seen_at, last_seen_at, messages, records, lost, lost_unit, waiting, dropped_waiting, malformed, unusable,
                 unclaimed_messages, records_per_second, sampling_interval, templates, enterprise_elements, last_error)
               VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16, coalesce(?17, '[]'), coalesce(?18, '[]'), ?19)

@@ -1,4 +1,4 @@
-import { and, asc, eq } from "drizzle-orm";
+import { and, asc, desc, eq } from "drizzle-orm";
 import { z } from "zod";
 import { recordAudit } from "~/audit.server";
 import type { Db } from "~/db/client.server";
@@ -312,6 +312,11 @@ export async function claimsFingerprint(db: Db): Promise<string> {
 
 // ---- observed exporters ------------------------------------------------------------------
 
+/** Rows of `exporters` kept at most (the most recently seen); app/collect prunes the rest. */
+export const MAX_EXPORTER_ROWS = 10_000;
+/** Exporters not heard from for this long are forgotten (their claims stay). */
+export const EXPORTER_ROWS_KEPT_MS = 30 * 24 * 3600_000;
+
 /** What the listeners have seen of one exporter (address, observation domain, transport). */
 export interface ObservedExporter {
   address: string;
@@ -430,7 +435,10 @@ async function readObserved(db: Db): Promise<{ exporter: ObservedExporter; addre
       templates: exporters.templates,
       enterpriseElements: exporters.enterpriseElements,
     })
-    .from(exporters);
+    .from(exporters)
+    // The collection service keeps the table to this size (spoofed sources cannot grow it without bound).
+    .orderBy(desc(exporters.lastSeenAt))
+    .limit(MAX_EXPORTER_ROWS);
   return rows.map((row) => {
     let address: Uint8Array | null = null;
     try {

@@ -114,6 +114,17 @@ describe("native collection listeners", () => {
     expect(String(rows[0].last_error)).toMatch(/not IPFIX/);
   });
 
+  it("forgets exporters silent for more than 30 days (a bound of its own: the table cannot grow without limit)", async () => {
+    const old = Date.now() - 31 * 24 * 3600_000;
+    await t.server.db.$client.execute({
+      sql: "INSERT INTO exporters (address, domain_id, transport, first_seen_at, last_seen_at) VALUES ('192.0.2.99', 0, 'ipfix-udp', ?, ?)",
+      args: [old, old],
+    });
+    await t.server.collection.drain();
+    const { rows } = await t.server.db.$client.execute("SELECT count(*) AS n FROM exporters WHERE address = '192.0.2.99'");
+    expect(Number(rows[0].n)).toBe(0);
+  });
+
   it("reports the listeners, the decode worker and their counters on /healthz", async () => {
     const res = await fetch(`${t.url}/healthz`);
     expect(res.status).toBe(200);
