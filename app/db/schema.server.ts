@@ -33,6 +33,12 @@ export const tenants = sqliteTable(
     /** M: hourly windows are deleted once this many days old (M ≥ N, checked by the settings; M = N deletes fine windows without a roll-up). */
     hourlyRetentionDays: integer("hourly_retention_days").notNull().default(365),
     /**
+     * k of the hourly windows a roll-up makes; null means the tenant's sample size. Up to the sum
+     * of the inputs' k (a roll-up of twelve 5-minute windows keeps at most 12k records): larger
+     * keeps intervals narrower at the cost of storage.
+     */
+    hourlySampleSize: integer("hourly_sample_size"),
+    /**
      * Coordinated priorities: u_i comes from a keyed hash of the flow key
      * (app/sampling/coordinated.ts) instead of a random source, so the same flow exported by
      * two collectors gets the same priority and a merge counts it once.
@@ -397,3 +403,41 @@ export const exporters = sqliteTable(
 
 export type ExporterClaim = typeof exporterClaims.$inferSelect;
 export type ExporterRow = typeof exporters.$inferSelect;
+
+/**
+ * The calibration report's raw material: every closed window is a free test of Weir's own
+ * interval, since its exact totals are known. One row per (reservoir window, metric) checked:
+ * the estimate and 95% interval of the window's total from its sample, the exact total, and
+ * whether the interval covered it.
+ */
+export const windowChecks = sqliteTable(
+  "window_checks",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    tenantId: integer("tenant_id")
+      .notNull()
+      .references(() => tenants.id, { onDelete: "cascade" }),
+    collectorId: integer("collector_id")
+      .notNull()
+      .references(() => collectors.id, { onDelete: "cascade" }),
+    windowStart: integer("window_start").notNull(),
+    windowSeconds: integer("window_seconds").notNull(),
+    /** "bytes", "packets" or "flows". */
+    metric: text("metric").notNull(),
+    estimate: real("estimate").notNull(),
+    low: real("low").notNull(),
+    high: real("high").notNull(),
+    /** The exact total, decimal text (unsigned 64-bit sums). */
+    exact: text("exact").notNull(),
+    covered: integer("covered", { mode: "boolean" }).notNull(),
+    /** Which interval method answered (see app/sampling/interval.ts). */
+    method: text("method").notNull(),
+    checkedAt: integer("checked_at").notNull(),
+  },
+  (t) => [
+    unique("window_checks_key_unique").on(t.tenantId, t.collectorId, t.windowStart, t.windowSeconds, t.metric),
+    index("window_checks_tenant_window_idx").on(t.tenantId, t.windowStart),
+  ],
+);
+
+export type WindowCheck = typeof windowChecks.$inferSelect;

@@ -84,6 +84,7 @@ describe("server (development mode, Vite middleware)", () => {
       "reservoirs",
       "tenants",
       "users",
+      "window_checks",
     ]);
   });
 
