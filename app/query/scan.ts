@@ -285,7 +285,7 @@ export function scan(reservoirs: readonly ScanReservoir[], q: CompiledQuery): Sc
     // as for every other kind, a group exists only when some kept record matched.
     const reservoirKey = group === Group.Collector ? r.collector : r.windowStart;
     let reservoirGroup = -1;
-    part.estimate = part.variance = part.certain = part.kept = part.uncertain = 0;
+    part.estimate = part.variance = part.certain = part.kept = part.uncertain = part.maxTerm = 0;
 
     for (let i = 0; i < n; i++) {
       if (proto !== null && proto[c.proto[i]] === 0) continue;

@@ -16,10 +16,12 @@ export interface EstimateSum {
   kept: number;
   /** Of those, records with p_i < 1 (the ones that carry the error). */
   uncertain: number;
+  /** The largest single uncertain term x_i/p_i (0 when none): how much one term can dominate. */
+  maxTerm: number;
 }
 
 /** The additive identity: an empty subset. */
-export const EMPTY_SUM: Readonly<EstimateSum> = Object.freeze({ estimate: 0, variance: 0, certain: 0, kept: 0, uncertain: 0 });
+export const EMPTY_SUM: Readonly<EstimateSum> = Object.freeze({ estimate: 0, variance: 0, certain: 0, kept: 0, uncertain: 0, maxTerm: 0 });
 
 /**
  * p_i = min(1, w_i/τ): the probability that record i is kept, conditioned on
@@ -40,7 +42,7 @@ export function inclusionProbability(weight: number, tau: number): number {
  *
  * @example
  * addRecord({ ...EMPTY_SUM }, 1200, 300, 300)
- * // { estimate: 1200, variance: 1080000, certain: 0, kept: 1, uncertain: 1 }
+ * // { estimate: 1200, variance: 1080000, certain: 0, kept: 1, uncertain: 1, maxTerm: 1200 }
  */
 export function addRecord(into: EstimateSum, tau: number, weight: number, x: number): EstimateSum {
   into.kept++;
@@ -50,9 +52,11 @@ export function addRecord(into: EstimateSum, tau: number, weight: number, x: num
     return into;
   }
   const p = weight / tau;
-  into.estimate += x / p;
+  const term = x / p;
+  into.estimate += term;
   into.variance += (x * x * (1 - p)) / (p * p);
   into.uncertain++;
+  if (term > into.maxTerm) into.maxTerm = term;
   return into;
 }
 
@@ -61,7 +65,7 @@ export function addRecord(into: EstimateSum, tau: number, weight: number, x: num
  * records are uncorrelated: DLT 2007, Theorem 2) and across reservoirs sampled
  * independently (collectors, windows).
  *
- * @example addSums({ estimate: 5, variance: 1, certain: 2, kept: 2, uncertain: 1 }, EMPTY_SUM).estimate // 5
+ * @example addSums({ estimate: 5, variance: 1, certain: 2, kept: 2, uncertain: 1, maxTerm: 3 }, EMPTY_SUM).estimate // 5
  */
 export function addSums(a: EstimateSum, b: EstimateSum): EstimateSum {
   return {
@@ -70,6 +74,7 @@ export function addSums(a: EstimateSum, b: EstimateSum): EstimateSum {
     certain: a.certain + b.certain,
     kept: a.kept + b.kept,
     uncertain: a.uncertain + b.uncertain,
+    maxTerm: Math.max(a.maxTerm, b.maxTerm),
   };
 }
 

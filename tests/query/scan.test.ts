@@ -224,7 +224,8 @@ describe("scan against a brute force over the same kept records", () => {
     const run = (metric: Metric, where: EstimateRequest["where"] = {}) =>
       scan(toScan(reservoirs), compileQuery(parse({ from: 0, to: 300_000, where }), metric)).total;
     // ŵ = max(w, τ): 5000 + 1000; v̂ = τ·max(0, τ − w) = 0 + 1000·700.
-    expect(run("bytes")).toEqual({ estimate: 6000, variance: 700_000, certain: 5000, kept: 2, uncertain: 1 });
+    // The largest uncertain term is the small record's ŵ = τ = 1000.
+    expect(run("bytes")).toEqual({ estimate: 6000, variance: 700_000, certain: 5000, kept: 2, uncertain: 1, maxTerm: 1000 });
     // Horvitz–Thompson with p = 300/1000 for the small record: 4 + 3/0.3; v̂ = 9·0.7/0.09.
     expect(run("packets").estimate).toBeCloseTo(14, 12);
     expect(run("packets").variance).toBeCloseTo(70, 9);

@@ -17,7 +17,7 @@ describe("the 95% normal quantile", () => {
 
 describe("toInterval", () => {
   it("is estimate ± z·√variance (normal approximation)", () => {
-    const iv = toInterval({ estimate: 1000, variance: 2500, certain: 0, kept: 40, uncertain: 40 });
+    const iv = toInterval({ estimate: 1000, variance: 2500, certain: 0, kept: 40, uncertain: 40, maxTerm: 0 });
     expect(iv.stdError).toBe(50);
     expect(iv.ci95[0]).toBeCloseTo(1000 - Z95 * 50, 9);
     expect(iv.ci95[1]).toBeCloseTo(1000 + Z95 * 50, 9);
@@ -32,12 +32,12 @@ describe("toInterval", () => {
     expect(sum.variance).toBe(9900);
     const iv = toInterval(sum);
     expect(iv.ci95[0]).toBe(5000);
-    const small = toInterval({ estimate: 10, variance: 400, certain: 0, kept: 1, uncertain: 1 });
+    const small = toInterval({ estimate: 10, variance: 400, certain: 0, kept: 1, uncertain: 1, maxTerm: 0 });
     expect(small.ci95[0]).toBe(0);
   });
 
   it(`flags rough when fewer than ${ROUGH_BELOW} uncertain kept records contribute`, () => {
-    expect(toInterval({ estimate: 1, variance: 1, certain: 0, kept: 50, uncertain: ROUGH_BELOW - 1 }).rough).toBe(true);
-    expect(toInterval({ estimate: 1, variance: 1, certain: 0, kept: 50, uncertain: ROUGH_BELOW }).rough).toBe(false);
+    expect(toInterval({ estimate: 1, variance: 1, certain: 0, kept: 50, uncertain: ROUGH_BELOW - 1, maxTerm: 0 }).rough).toBe(true);
+    expect(toInterval({ estimate: 1, variance: 1, certain: 0, kept: 50, uncertain: ROUGH_BELOW, maxTerm: 0 }).rough).toBe(false);
   });
 });
