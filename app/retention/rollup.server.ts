@@ -6,7 +6,8 @@ import { tenants, type Tenant } from "~/db/schema.server";
 import type { ReservoirManager } from "~/ingest/manager.server";
 import { windowStartOf } from "~/ingest/window";
 import type { Logger } from "~/logger.server";
-import { deleteWindowsStatement, mergeWindowStates, putWindowStatements, readStoredWindows, stateOf, type StoredWindow } from "~/samples/store.server";
+import { deleteWindowsStatement, putWindowStatements, readStoredWindows, stateOf, type StoredWindow, type WindowState } from "~/samples/store.server";
+import { rollUpStates } from "~/sampling/rollup";
 import { listTenants } from "~/tenants.server";
 
 /**
@@ -255,7 +256,7 @@ async function rollUpChunks(db: Db, tenant: Tenant, rollFrom: number, rollTo: nu
     const hour = windowStartOf(Number(row[1]), HOUR_SECONDS);
     const key = `${collectorId}:${hour}`;
     let group = groups.get(key);
-    if (!group) groups.set(key, (group = { collectorId, hour, kept: tenant.sampleSize }));
+    if (!group) groups.set(key, (group = { collectorId, hour, kept: hourlySampleSizeOf(tenant) }));
     group.kept += Math.min(Number(row[3]), Number(row[4]));
   }
   const chunks: Chunk[] = [];
@@ -297,7 +298,7 @@ async function rollUpChunk(tx: Transaction, tenant: Tenant, chunk: Chunk, node: 
   for (const [hour, fineWindows] of byHour) {
     // Earlier roll-ups and hourly windows of other nodes join in: one hourly window per collector and hour remains.
     const inputs = [...hourly.filter((w) => w.windowStart === hour), ...fineWindows];
-    const { state } = mergeWindowStates(inputs.map(stateOf), tenant.sampleSize, false);
+    const state = rollUpWindowStates(inputs.map(stateOf), hourlySampleSizeOf(tenant));
     const key = { windowStart: hour, windowSeconds: HOUR_SECONDS, node };
     statements.push(...putWindowStatements(tenant.id, chunk.collectorId, key, state, writtenAt));
     // The target row is rewritten in place, not deleted.
@@ -320,6 +321,31 @@ async function rollUpChunk(tx: Transaction, tenant: Tenant, chunk: Chunk, node: 
     kept,
     emptyDeleted: results.at(-1)!.rowsAffected,
   };
+}
+
+/** The hourly sample size K: `tenants.hourly_sample_size`, or the tenant's k when unset. */
+export function hourlySampleSizeOf(tenant: Pick<Tenant, "sampleSize" | "hourlySampleSize">): number {
+  return tenant.hourlySampleSize ?? tenant.sampleSize;
+}
+
+/**
+ * One hourly window from its inputs: kept records by `rollUpStates` (valid for K above the
+ * inputs' k too), exact counters summed exactly.
+ */
+export function rollUpWindowStates(inputs: readonly WindowState[], kWanted: number): WindowState {
+  const merged = rollUpStates(
+    inputs.map((w) => ({ k: w.k, tau: w.tau, seen: w.records, kept: w.kept })),
+    kWanted,
+  );
+  let records = 0;
+  let bytes = 0n;
+  let packets = 0n;
+  for (const w of inputs) {
+    records += w.records;
+    bytes += w.bytes;
+    packets += w.packets;
+  }
+  return { k: merged.k, tau: merged.tau, records, bytes, packets, kept: merged.kept };
 }
 
 /** Deletes up to MAX_WINDOWS_PER_DELETE windows that ended at or before `cutoff`. */

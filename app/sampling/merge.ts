@@ -28,6 +28,8 @@ export function mergeStates<T>(inputs: readonly ReservoirState<T>[], kWanted = I
     k,
     tau,
     seen: inputs.reduce((n, r) => n + r.seen, 0),
-    kept: union.slice(0, k),
+    // A no-op for inputs that hold k_j records whenever τ_j > 0; an hourly roll-up above the
+    // fine k (rollup.ts) may hold fewer, and a record at or below the common τ must not stay.
+    kept: union.slice(0, k).filter((r) => r.priority > tau),
   };
 }
