@@ -42,6 +42,9 @@ export const envSchema = z
     // (each tenant's retention settings); 0 turns the timer off (run `npm run admin -- retention run`).
     // In a deployment of several nodes on one database, leave it on for one node only.
     RETENTION_INTERVAL_MINUTES: z.coerce.number().int().min(0).default(60),
+    // How often the server checks closed windows' 95% intervals against their exact totals for the
+    // calibration report (at most 500 windows a run, oldest first); 0 turns the checks off.
+    CALIBRATION_INTERVAL_MINUTES: z.coerce.number().int().min(0).default(5),
     // Native collection (app/collect): UDP listeners for IPFIX (RFC 7011; 4739 is IANA's port)
     // and NetFlow v9 (RFC 3954; no IANA port: 2055 is common practice), and a TCP listener for
     // IPFIX. 0 turns one off. They bind to COLLECT_HOST, which defaults to HOST.

@@ -17,6 +17,7 @@ import type { GitHubConfig } from "../auth/github.server";
 import { createMail, type Mail } from "../mail.server";
 import type { UniformSource } from "../sampling/uniform";
 import { startRetentionTimer, type RetentionTimerOptions } from "../retention/timer.server";
+import { startCalibrationTimer, type CalibrationTimerOptions } from "../calibration/timer.server";
 import { Collection } from "../collect/collection.server";
 
 declare module "react-router" {
@@ -51,6 +52,8 @@ export interface StartServerOptions {
   uniform?: UniformSource;
   /** Overrides of the roll-up/retention timer (interval from `env.RETENTION_INTERVAL_MINUTES`, first run after a minute); tests shorten them. */
   retention?: Partial<RetentionTimerOptions>;
+  /** Overrides of the calibration timer (interval from `env.CALIBRATION_INTERVAL_MINUTES`, first run after a minute). */
+  calibration?: Partial<CalibrationTimerOptions>;
   /**
    * Overrides of the native-collection listener ports (env IPFIX_UDP_PORT, NETFLOW_UDP_PORT,
    * IPFIX_TCP_PORT): null turns one off, 0 asks the OS for a free port (tests).
@@ -166,13 +169,16 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
       { db, manager, node: env.NODE_ID, logger },
       { ...options.retention, intervalMs: options.retention?.intervalMs ?? env.RETENTION_INTERVAL_MINUTES * 60_000 },
     );
+    const calibration = startCalibrationTimer(
+      { db, logger },
+      { ...options.calibration, intervalMs: options.calibration?.intervalMs ?? env.CALIBRATION_INTERVAL_MINUTES * 60_000 },
+    );
     let closing: Promise<void> | undefined;
     const close = () => {
       // The pool closes after shutDown has drained the HTTP server, so no request loses its parser.
-      // A retention run stops after its current transaction, before the database closes.
+      // A retention run stops after its current transaction, and a calibration run ends, before the database closes.
       // The listeners stop and store what they buffered before the database closes.
-      closing ??= retention
-        .stop()
+      closing ??= Promise.all([retention.stop(), calibration.stop()])
         .then(() => listeners.close())
         .then(() => shutDown(httpServer, vite, db, logger, manager))
         .then(() => pool.close())
