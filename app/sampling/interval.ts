@@ -1,4 +1,5 @@
 import type { EstimateSum } from "./estimate";
+import { gammaQuantile } from "./gamma";
 
 /**
  * z = Φ⁻¹(0.975), the standard normal quantile for a two-sided 95% interval
@@ -7,8 +8,22 @@ import type { EstimateSum } from "./estimate";
  */
 export const Z95 = 1.959963984540054;
 
-/** Below this many uncertain kept records an interval is flagged `rough`. */
-export const ROUGH_BELOW = 10;
+/**
+ * Fewer uncertain terms than this and the normal approximation is poor: the gamma interval
+ * answers. Chosen by measurement (tests/sampling/coverage.test.ts; README, "How good are the
+ * intervals").
+ */
+export const ROUGH_BELOW = 20;
+
+/**
+ * One term carrying more than this share of the variance (maxTerm²/Var̂) and the sum is too
+ * skewed for the normal approximation: the gamma interval answers. Chosen by measurement, as
+ * ROUGH_BELOW.
+ */
+export const DOMINANT_SHARE = 0.05;
+
+/** G⁻¹(0.975; 1) = −ln 0.025: Garwood's 95% upper limit for a Poisson count of 0. */
+export const ZERO_COUNT_UPPER = -Math.log(0.025);
 
 /**
  * Which method gave an interval: `exact` (every record of the range was kept, τ = 0: no
@@ -39,30 +54,108 @@ export interface Interval {
   roughReason: string | null;
   method: IntervalMethod;
   kept: number;
+  /** False when no kept record matched (method `no-match`): the interval is 0 up to a bound. */
+  matched: boolean;
 }
 
 /**
- * The 95% interval estimate ± z·√Var̂ of a subset sum, by the normal
- * approximation (the estimate is a sum of many independent-ish terms; DLT 2007
- * show the terms are uncorrelated). The lower bound is never below the part known
- * for certain (kept records with w ≥ τ) nor below 0; it is flagged rough when
- * fewer than 10 uncertain kept records contribute, where the approximation is poor.
+ * Why the normal approximation would be poor for this sum, or null when it covers: fewer than
+ * ROUGH_BELOW uncertain terms, or one term carrying more than DOMINANT_SHARE of the variance
+ * (maxTerm² / Var̂; the term's own variance is at most its square).
+ *
+ * @example roughReason({ estimate: 300, variance: 30000, certain: 0, kept: 3, uncertain: 3, maxTerm: 100 })
+ *   // "the normal approximation would be poor: 3 uncertain terms"
+ */
+export function roughReason(sum: EstimateSum): string | null {
+  if (sum.uncertain < ROUGH_BELOW) {
+    return `the normal approximation would be poor: ${sum.uncertain} uncertain term${sum.uncertain === 1 ? "" : "s"}`;
+  }
+  const share = sum.variance > 0 ? (sum.maxTerm * sum.maxTerm) / sum.variance : 0;
+  if (share > DOMINANT_SHARE) return `one record carries ${Math.round(Math.min(1, share) * 100)}% of the variance`;
+  return null;
+}
+
+/**
+ * The Fay–Feuer 95% gamma interval for a weighted Poisson sum y = Σ t_i with variance
+ * estimate v and largest possible single term wM (Fay and Feuer, "Confidence intervals for
+ * directly standardized rates: a method based on the gamma distribution", Statistics in
+ * Medicine 16, 1997, eqs. 4–5): lower (v/y)·G⁻¹(0.025; y²/v), upper
+ * ((v + wM²)/(y + wM))·G⁻¹(0.975; (y + wM)²/(v + wM²)), G the gamma quantile of scale 1.
+ * With every t_i = w and v = Σ t_i² it is w times Garwood's exact Poisson interval
+ * (Biometrika 28, 1936); with y = 0 it is [0, wM·3.689].
+ *
+ * @example gammaInterval(3, 3, 1) // [0.6187…, 8.7673…]: Garwood's limits for 3 events
+ */
+export function gammaInterval(y: number, v: number, wM: number): [low: number, high: number] {
+  const low = y > 0 && v > 0 ? (v / y) * gammaQuantile((y * y) / v, 0.025) : y > 0 ? y : 0;
+  const yUp = y + wM;
+  const vUp = v + wM * wM;
+  const high = yUp > 0 && vUp > 0 ? (vUp / yUp) * gammaQuantile((yUp * yUp) / vUp, 0.975) : y;
+  return [low, Math.max(high, y)];
+}
+
+/**
+ * The 95% interval of a subset sum over priority samples (Duffield, Lund, Thorup, J. ACM
+ * 54(6), 2007). The certain part (kept records with w ≥ τ) is exact; the uncertain part is
+ * y = Σ t_i over kept records below τ, t_i = x_i/p_i with p_i = w_i/τ, and Var̂ = Σ t_i²(1 − p_i).
+ *
+ * - `normal`: estimate ± z·√Var̂ where the normal approximation covers: at least ROUGH_BELOW
+ *   uncertain terms and none carrying more than DOMINANT_SHARE of the variance.
+ * - `gamma`: otherwise, the uncertain part as a weighted Poisson sum (each record of the subset
+ *   below τ enters with probability p_i and then adds t_i), by Fay and Feuer's gamma interval
+ *   with v = Var̂ and wM = max(maxTerm, unseenTerm): a record that was not kept had w < τ and so
+ *   would have added at most unseenTerm had it been kept. Rough, with the reason.
+ * - `no-match`: no kept record matched but τ > 0: [0, min(cap, 3.689·unseenTerm)].
+ * - `exact`: nothing uncertain and unseenTerm = 0 (every record of the range was kept).
+ *
+ * Combining windows (why one unseenTerm = max τ·bound serves a range of many): in window j each
+ * record of the subset that was not kept has w < τ_j and would have been kept with probability
+ * w/τ_j, so the expected number of kept uncertain records is Λ = Σ_j W_j/τ_j, W_j the subset's
+ * weight below τ_j in window j, and the count is approximately Poisson(Λ) (DLT 2007: given τ the
+ * inclusions are independent Bernoulli draws). A count of 0 rejects Λ > 3.689 at 97.5%, and
+ * W = Σ_j W_j ≤ max_j τ_j · Σ_j W_j/τ_j = max τ·Λ ≤ 3.689·max τ. A metric x with x ≤ b·w per
+ * record scales the bound by b; the same argument with the terms t_i ≤ unseenTerm is why wM is
+ * at least unseenTerm in the gamma upper bound.
+ *
+ * Upper bounds are never above `context.cap`, lower bounds never below the certain part.
  *
  * @example
- * toInterval({ estimate: 1000, variance: 2500, certain: 0, kept: 40, uncertain: 40 })
- * // { estimate: 1000, stdError: 50, ci95: [902.0018…, 1097.998…], rough: false, kept: 40 }
+ * toInterval({ estimate: 1000, variance: 2500, certain: 0, kept: 40, uncertain: 40, maxTerm: 10 })
+ * // { estimate: 1000, stdError: 50, ci95: [902.0018…, 1097.998…], rough: false, method: "normal", … }
+ * @example
+ * toInterval({ estimate: 0, variance: 0, certain: 0, kept: 0, uncertain: 0, maxTerm: 0 }, { unseenTerm: 1000 })
+ * // { ci95: [0, 3688.879…], method: "no-match", matched: false, rough: true, … }
  */
-export function toInterval(sum: EstimateSum, _context: IntervalContext = { unseenTerm: 0 }): Interval {
+
+export function toInterval(sum: EstimateSum, context: IntervalContext = { unseenTerm: 0 }): Interval {
   const stdError = Math.sqrt(Math.max(0, sum.variance));
-  const half = Z95 * stdError;
-  const rough = sum.uncertain < ROUGH_BELOW;
-  return {
-    estimate: sum.estimate,
-    stdError,
-    ci95: [Math.max(sum.estimate - half, sum.certain, 0), sum.estimate + half],
-    rough,
-    roughReason: rough ? `${sum.uncertain} uncertain kept record${sum.uncertain === 1 ? "" : "s"} (fewer than ${ROUGH_BELOW})` : null,
-    method: "normal",
-    kept: sum.kept,
+  const unseen = Math.max(0, context.unseenTerm);
+  const cap = context.cap ?? Infinity;
+  const certain = sum.certain;
+  const bounded = (low: number, high: number): [number, number] => {
+    const lo = Math.max(low, certain, 0);
+    return [Math.min(lo, cap), Math.max(lo, Math.min(high, cap))];
   };
+  const base = { estimate: sum.estimate, stdError, kept: sum.kept, matched: sum.kept > 0 };
+
+  if (sum.uncertain === 0 && unseen === 0) {
+    return { ...base, ci95: [sum.estimate, sum.estimate], rough: false, roughReason: null, method: "exact" };
+  }
+  if (sum.kept === 0) {
+    return {
+      ...base,
+      ci95: bounded(0, ZERO_COUNT_UPPER * unseen),
+      rough: true,
+      roughReason: "no sampled record matched",
+      method: "no-match",
+    };
+  }
+  const reason = roughReason(sum);
+  if (reason === null) {
+    const half = Z95 * stdError;
+    return { ...base, ci95: bounded(sum.estimate - half, sum.estimate + half), rough: false, roughReason: null, method: "normal" };
+  }
+  const y = Math.max(0, sum.estimate - certain);
+  const [low, high] = gammaInterval(y, Math.max(0, sum.variance), Math.max(sum.maxTerm, unseen));
+  return { ...base, ci95: bounded(certain + low, certain + high), rough: true, roughReason: reason, method: "gamma" };
 }

@@ -106,8 +106,9 @@ describe("priority-sampling estimators, Monte Carlo over a heavy-tailed populati
 
   it("the 95% interval covers the truth in 93%–97% of trials for a subset with many kept records (normal approximation)", () => {
     // Normal approximation to a sum of many uncorrelated terms; binomial standard
-    // error of the rate over 4000 trials is 0.34%, so the band is about ±6 SE.
-    expect(coverage.rough).toBe(0);
+    // error of the rate over 4000 trials is 0.34%, so the band is about ±6 SE. Rough (one term
+    // over 5% of the variance: the gamma interval answers) is rare for a subset this large.
+    expect(coverage.rough).toBeLessThanOrEqual(TRIALS / 100);
     const rate = coverage.hits / TRIALS;
     expect(rate).toBeGreaterThanOrEqual(0.93);
     expect(rate).toBeLessThanOrEqual(0.97);
