@@ -7,6 +7,7 @@ export default [
   route("api/v1/estimate", "routes/api.v1.estimate.ts"),
   route("api/v1/samples", "routes/api.v1.samples.ts"),
   route("api/v1/merge", "routes/api.v1.merge.ts"),
+  route("api/v1/calibration", "routes/api.v1.calibration.ts"),
 
   route("signin", "routes/signin.tsx"),
   route("signout", "routes/signout.ts"),
@@ -24,6 +25,8 @@ export default [
     route("intake", "routes/console.intake.tsx"),
     // JSON for the Intake page's polling (a resource route: no component).
     route("intake-data", "routes/console.intake-data.ts"),
+    // How often closed windows' intervals covered their exact totals; linked from Intake, not the main nav.
+    route("calibration", "routes/console.calibration.tsx"),
     route("exporters", "routes/console.exporters.tsx"),
     // JSON for the Exporters page's polling (a resource route: no component).
     route("exporters-data", "routes/console.exporters-data.ts"),

@@ -1,4 +1,4 @@
-import { useLoaderData } from "react-router";
+import { Link, useLoaderData } from "react-router";
 import useSWR from "swr";
 import { requireMember } from "~/auth/guards.server";
 import { IntakeTable } from "~/components/intake/IntakeTable";
@@ -33,6 +33,11 @@ export default function Intake() {
       <PageHeader
         title="Intake"
         lead={<>Live ingest health of {tenant.name}, per collector: where its records come from, how fast they arrive, the exact bytes of recent windows, and how full each open reservoir is. Refreshed every {REFRESH_MS / 1000} s; times in UTC.</>}
+        actions={
+          <Link to={`/t/${tenant.slug}/calibration`} className="text-sm text-river-200 underline-offset-4 hover:underline">
+            Calibration: how often intervals covered
+          </Link>
+        }
       />
       <div className="flex flex-col gap-6">
         {error ? <ErrorState title="Could not refresh Intake" message={`${error.message}${data ? " The figures below are from the last successful refresh." : ""}`} /> : null}
