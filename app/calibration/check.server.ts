@@ -67,7 +67,10 @@ export interface WindowCheckResult {
  * would make the check say little about the intervals queries get (they know no such cap for
  * a subset).
  *
- * @example checkWindow(window).map((c) => c.covered) // [true, true, false]
+ * @example
+ * // A window of 40 records kept whole (k = 64, τ = 0): every estimate is exact.
+ * checkWindow(window).map((c) => [c.metric, c.interval.ci95, c.exact, c.covered])
+ * // [["bytes", [183244, 183244], 183244n, true], ["packets", [301, 301], 301n, true], ["flows", [40, 40], 40n, true]]
  */
 export function checkWindow(window: WindowToCheck): WindowCheckResult[] {
   const sums: Record<CalibrationMetric, EstimateSum> = { bytes: { ...EMPTY_SUM }, packets: { ...EMPTY_SUM }, flows: { ...EMPTY_SUM } };
