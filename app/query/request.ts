@@ -19,6 +19,14 @@ export type GroupByKind = (typeof GROUP_BY)[number];
 /** Group prefix lengths when none are given: a /24 per IPv4 network, a /64 per IPv6 subnet (RFC 4291 §2.5.4). */
 export const DEFAULT_PREFIX_LENGTH = { ipv4: 24, ipv6: 64 } as const;
 export const DEFAULT_TOP = 10;
+
+/**
+ * How a group-by picks its top groups: `estimate` ranks on the groups' own estimates (which
+ * then tend to be overstated), `split` ranks on one half of the kept records and estimates on
+ * an independent other half (selection.ts).
+ */
+export const RANK_MODES = ["estimate", "split"] as const;
+export type RankMode = (typeof RANK_MODES)[number];
 export const MAX_TOP = 1000;
 /** Longest time range of one query; a year and a bit, so "the same month last year" fits. */
 export const MAX_SPAN_DAYS = 400;
@@ -61,6 +69,8 @@ export interface EstimateRequest {
   /** With groupBy src or dst: one length for both families (0–32), or one per family on its own scale. */
   prefixLength?: number | { ipv4?: number; ipv6?: number };
   top?: number;
+  /** With groupBy: how the top groups are chosen; default "estimate". */
+  rank?: RankMode;
 }
 
 /** A validated request, ready to compile. Times are epoch ms; windows whose start lies in [from, to) are covered. */
@@ -81,6 +91,7 @@ export interface EstimateQuery {
   metric: Metric | null;
   groupBy: GroupBy | null;
   top: number;
+  rank: RankMode;
 }
 
 /** One problem with a request: `path` names the field as the client wrote it. */
@@ -259,8 +270,9 @@ const requestObject = z.strictObject(
       .min(1, { error: `must be a whole number from 1 to ${MAX_TOP}` })
       .max(MAX_TOP, { error: `must be a whole number from 1 to ${MAX_TOP}` })
       .optional(),
+    rank: z.enum(RANK_MODES, { error: `must be one of ${RANK_MODES.join(", ")} (split: rank on one half of the kept records, estimate on the other)` }).optional(),
   },
-  { error: "the request must be a JSON object with from, to and optional where, metric, groupBy, prefixLength, top" },
+  { error: "the request must be a JSON object with from, to and optional where, metric, groupBy, prefixLength, top, rank" },
 );
 
 const REQUEST_FIELDS = Object.keys(requestObject.shape);
@@ -281,6 +293,9 @@ export const estimateRequestSchema = requestObject
     if (q.prefixLength !== undefined && q.groupBy !== "src" && q.groupBy !== "dst") {
       ctx.addIssue({ code: "custom", path: ["prefixLength"], message: "applies only with groupBy src or dst" });
     }
+    if (q.rank !== undefined && q.groupBy === undefined) {
+      ctx.addIssue({ code: "custom", path: ["rank"], message: "applies only with groupBy: it says how the top groups are chosen" });
+    }
   })
   .transform((q): EstimateQuery => {
     const where = q.where ?? whereSchema.parse({});
@@ -295,7 +310,7 @@ export const estimateRequestSchema = requestObject
     } else if (q.groupBy !== undefined) {
       groupBy = { by: q.groupBy };
     }
-    return { from: q.from, to: q.to, where, metric: q.metric ?? null, groupBy, top: q.top ?? DEFAULT_TOP };
+    return { from: q.from, to: q.to, where, metric: q.metric ?? null, groupBy, top: q.top ?? DEFAULT_TOP, rank: q.rank ?? "estimate" };
   });
 
 // ---- issues --------------------------------------------------------------------------------
@@ -361,7 +376,7 @@ export function parseEstimateRequest(body: unknown): ParsedQuery {
 
 // ---- the query-string form ------------------------------------------------------------------
 
-const QUERY_SCALARS = ["from", "to", "metric", "groupBy", "prefixLength", "top"] as const;
+const QUERY_SCALARS = ["from", "to", "metric", "groupBy", "prefixLength", "top", "rank"] as const;
 const NUMERIC_LISTS = new Set(["proto"]);
 
 function digitsToNumber(text: string): string | number {
