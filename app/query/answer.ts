@@ -4,9 +4,10 @@
  * Pure module: no I/O, usable in the browser and on the server.
  */
 import type { EstimateSum } from "../sampling/estimate.ts";
-import { toInterval } from "../sampling/interval.ts";
+import { toInterval, type IntervalContext, type IntervalMethod } from "../sampling/interval.ts";
 import type { Metric } from "./request.ts";
 import type { ScanResult } from "./scan.ts";
+import { simultaneousInterval, type SelectionJson } from "./selection.ts";
 
 /** An estimate with its error: standard error, 95% interval, kept records behind it, rough flag. */
 export interface IntervalJson {
@@ -14,13 +15,29 @@ export interface IntervalJson {
   stdError: number;
   ci95: [low: number, high: number];
   kept: number;
-  /** Fewer than 10 uncertain kept records: the normal interval is a poor guide. */
+  /**
+   * The normal approximation would be poor here (fewer than 20 uncertain terms, or one term
+   * carrying over 5% of the variance, or nothing matched): the gamma interval answered.
+   */
   rough: boolean;
+  /** How the interval was found: `exact`, `normal`, `gamma` or `no-match` (see toInterval). */
+  method: IntervalMethod;
+  /** Why rough, in words; null when not rough. */
+  roughReason: string | null;
+  /** False when no kept record matched: the interval is 0 up to a bound, never proof of no traffic. */
+  matched: boolean;
+  /** "no sampled record matched", only when matched is false. */
+  message?: string;
 }
 
 export interface GroupJson extends IntervalJson {
   /** A prefix (`198.51.100.0/24`), a port or protocol number, a collector name, or a window start (ISO 8601). */
   key: string;
+  /**
+   * With a group-by: the Bonferroni interval, estimate ± z·SE with z = Φ⁻¹(1 − 0.025/m) for the
+   * m groups ranked (never narrower than ci95), so all m hold together with at least 95%.
+   */
+  ci95Simultaneous?: [low: number, high: number];
 }
 
 /** Exact counters: numbers up to 2^53−1, decimal strings above, where JSON numbers stop being exact. */
@@ -56,15 +73,45 @@ export interface EstimateAnswer extends IntervalJson {
 }
 
 /**
- * An estimate sum as JSON through `toInterval` (the lower bound is never below the certain
- * part nor below 0; rough under 10 uncertain records).
+ * An estimate sum as JSON through `toInterval` with the range's context (the lower bound is
+ * never below the certain part, the upper never above the range's exact total; no zero-width
+ * interval while τ > 0).
  *
- * @example intervalJson({ estimate: 1000, variance: 2500, certain: 0, kept: 40, uncertain: 40 })
- *   // { estimate: 1000, stdError: 50, ci95: [902.0018…, 1097.998…], kept: 40, rough: false }
+ * @example intervalJson({ estimate: 1000, variance: 2500, certain: 0, kept: 40, uncertain: 40, maxTerm: 10 })
+ *   // { estimate: 1000, stdError: 50, ci95: [902.0018…, 1097.998…], kept: 40, rough: false, method: "normal", roughReason: null, matched: true }
+ * @example intervalJson(EMPTY_SUM, { unseenTerm: 1000 })
+ *   // { estimate: 0, stdError: 0, ci95: [0, 3688.879…], kept: 0, rough: true, method: "no-match", …, matched: false, message: "no sampled record matched" }
  */
-export function intervalJson(sum: EstimateSum): IntervalJson {
-  const i = toInterval(sum);
-  return { estimate: i.estimate, stdError: i.stdError, ci95: i.ci95, kept: i.kept, rough: i.rough };
+export function intervalJson(sum: EstimateSum, context?: IntervalContext): IntervalJson {
+  const i = toInterval(sum, context);
+  const json: IntervalJson = {
+    estimate: i.estimate,
+    stdError: i.stdError,
+    ci95: i.ci95,
+    kept: i.kept,
+    rough: i.rough,
+    method: i.method,
+    roughReason: i.roughReason,
+    matched: i.matched,
+  };
+  if (!i.matched) json.message = NO_MATCH_MESSAGE;
+  return json;
+}
+
+export const NO_MATCH_MESSAGE = "no sampled record matched";
+
+/**
+ * The most a metric can be per unit of sampling weight, for one record: how much one record
+ * that was not kept (weight below τ) could add. Under a byte weight every metric is at most the
+ * weight (a packet has at least 1 byte, a flow counts 1 and has w ≥ 1). Under a packet weight,
+ * packets and flows are at most 1 per packet and bytes at most 65 535 per packet, the largest
+ * IPv4 Total Length (RFC 791 §3.1: a 16-bit field); an IPv6 jumbogram (RFC 2675) could exceed
+ * it, which flow exporters do not report in practice (common practice).
+ *
+ * @example unseenPerWeight("packets", "bytes") // 65535
+ */
+export function unseenPerWeight(weight: "bytes" | "packets", metric: Metric): number {
+  return weight === "packets" && metric === "bytes" ? 65_535 : 1;
 }
 
 /**
@@ -115,6 +162,27 @@ export interface AnswerParts {
   exact: { records: bigint; bytes: bigint; packets: bigint };
   from: number;
   to: number;
+  /**
+   * What the intervals may use about the range: unseenTerm = the largest τ of the reservoirs
+   * covered times unseenPerWeight, cap = the range's exact total of the metric. Without it,
+   * τ is taken as 0 (every record kept), as in tests of the answer's shape.
+   */
+  context?: IntervalContext;
+  /** With a group-by: how the groups were chosen (selection.ts). */
+  selection?: SelectionJson | null;
+}
+
+/**
+ * One group with its interval, and with a selection its Bonferroni interval. A group of a split
+ * ranking is estimated from half B, where a record below τ is in the half with probability
+ * about w/(2τ): a record the half left out may stand for up to 2τ, hence the doubled unseenTerm.
+ */
+function groupJson(key: string, sum: EstimateSum, parts: AnswerParts): GroupJson {
+  const { context, selection } = parts;
+  const halfContext = selection?.rankedBy === "split" && context ? { ...context, unseenTerm: 2 * context.unseenTerm } : context;
+  const json: GroupJson = { key, ...intervalJson(sum, halfContext) };
+  if (selection) json.ci95Simultaneous = simultaneousInterval(json, sum.certain, selection.simultaneousZ);
+  return json;
 }
 
 /** Assembles the answer, fields in the documented order. */
@@ -122,11 +190,12 @@ export function buildAnswer(parts: AnswerParts): EstimateAnswer {
   const { metric, result, exact } = parts;
   return {
     metric,
-    ...intervalJson(result.total),
+    ...intervalJson(result.total, parts.context),
     windows: parts.windows,
     collectors: parts.collectors,
     exact: { records: counterJson(exact.records), bytes: counterJson(exact.bytes), packets: counterJson(exact.packets) },
-    groups: result.groups.map((g) => ({ key: g.key, ...intervalJson(g.sum) })),
+    groups: result.groups.map((g) => groupJson(g.key, g.sum, parts)),
+    ...(parts.selection ? { selection: parts.selection } : {}),
     from: new Date(parts.from).toISOString(),
     to: new Date(parts.to).toISOString(),
     resolution: resolutionJson(parts.spans ?? []),

@@ -2,11 +2,12 @@ import type { InStatement, InValue, Row } from "@libsql/client";
 import { ApiError } from "~/auth/api-keys.server";
 import type { Db } from "~/db/client.server";
 import type { ReservoirManager } from "~/ingest/manager.server";
-import { buildAnswer, type EstimateAnswer, type WindowSpan } from "./answer";
+import { buildAnswer, unseenPerWeight, type EstimateAnswer, type WindowSpan } from "./answer";
 import type { KeptColumns } from "./columns";
 import { keptRowsToColumns } from "~/ingest/kept-codec";
 import type { EstimateQuery } from "./request";
-import { compileQuery, scan, type ScanReservoir } from "./scan";
+import { compileQuery, type ScanReservoir } from "./scan";
+import { rankGroups } from "./selection";
 import { SnapshotCache } from "./snapshot-cache";
 
 /** What an estimate needs of the server: the database and this node's live reservoirs. */
@@ -77,13 +78,18 @@ export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, 
   }
 
   const reservoirs = await keptColumns(ctx, tenant.id, rows);
-  const result = scan(reservoirs, compileQuery(query, metric));
+  const { selection, ...result } = rankGroups(reservoirs, compileQuery(query, metric), query.rank);
 
   const windows = new Set<number>();
   const collectors = new Set<string>();
   const spans: WindowSpan[] = [];
   const exact = { records: 0n, bytes: 0n, packets: 0n };
+  // Records not kept in any covered reservoir had w < τ there: the intervals bound what they may
+  // add by the largest τ (see toInterval), live reservoirs' τ included.
+  let maxTau = 0;
+  for (const r of reservoirs) maxTau = Math.max(maxTau, r.tau);
   for (const r of rows) {
+    maxTau = Math.max(maxTau, r.tau);
     windows.add(r.windowStart);
     spans.push({ windowStart: r.windowStart, windowSeconds: r.windowSeconds });
     collectors.add(r.collector);
@@ -100,6 +106,11 @@ export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, 
     exact,
     from: query.from,
     to: query.to,
+    selection,
+    context: {
+      unseenTerm: maxTau * unseenPerWeight(tenant.weightAttribute, metric),
+      cap: Number(metric === "bytes" ? exact.bytes : metric === "packets" ? exact.packets : exact.records),
+    },
   });
 }
 

@@ -133,8 +133,10 @@ export function toInterval(sum: EstimateSum, context: IntervalContext = { unseen
   const cap = context.cap ?? Infinity;
   const certain = sum.certain;
   const bounded = (low: number, high: number): [number, number] => {
-    const lo = Math.max(low, certain, 0);
-    return [Math.min(lo, cap), Math.max(lo, Math.min(high, cap))];
+    let lo = Math.max(low, certain, 0);
+    // A lower bound above the range's exact total contradicts it: keep only what is certain.
+    if (lo > cap) lo = Math.min(Math.max(certain, 0), cap);
+    return [lo, Math.max(lo, Math.min(high, cap))];
   };
   const base = { estimate: sum.estimate, stdError, kept: sum.kept, matched: sum.kept > 0 };
 

@@ -286,7 +286,13 @@ describe("/api/v1/estimate", () => {
         expect(Math.abs(a.estimate - t), `${metric}: estimate ${a.estimate} ± ${a.stdError}, truth ${t}`).toBeLessThanOrEqual(4 * a.stdError);
         expect(a.ci95[0]).toBeGreaterThanOrEqual(0);
         expect(a.ci95[0]).toBeLessThanOrEqual(a.estimate);
-        expect(a.ci95[1]).toBeCloseTo(a.estimate + 1.959963984540054 * a.stdError, 6);
+        // The normal interval where it covers, capped at the range's exact total; the gamma
+        // interval (Fay and Feuer 1997) where the normal approximation would be poor, and then rough.
+        const cap = Number(metric === "bytes" ? a.exact.bytes : metric === "packets" ? a.exact.packets : a.exact.records);
+        if (a.method === "normal") expect(a.ci95[1]).toBeCloseTo(Math.min(cap, a.estimate + 1.959963984540054 * a.stdError), 6);
+        else expect(a).toMatchObject({ method: "gamma", rough: true, matched: true });
+        expect(a.ci95[1]).toBeGreaterThan(a.ci95[0]);
+        expect(a.ci95[1]).toBeLessThanOrEqual(cap);
       }
     });
 
@@ -328,6 +334,21 @@ describe("/api/v1/estimate", () => {
       expect(oneCollector.collectors).toEqual(["edge-1"]);
       expect(oneCollector.exact.records).toBe(edge1.length);
       expect(oneCollector.exact.bytes).toBe(Number(sum(edge1, (r) => r.bytes)));
+    });
+
+    it("answers a subset no kept record matched with 'no sampled record matched' and 0 up to 3.689·τ (Garwood 1936, count 0), never [0, 0]", async () => {
+      const where = { src: ["2001:db8:ffff:ffff::/64"] };
+      const maxTau = async (tenantId: number) =>
+        Number((await server.db.$client.execute({ sql: "SELECT max(tau) FROM reservoirs WHERE tenant_id = ?", args: [tenantId] })).rows[0][0]);
+      const bytesTenant = await answer(keys.alpha, { ...RANGE, where, metric: "bytes" });
+      const tauAlpha = await maxTau(tenants.alpha.id);
+      expect(tauAlpha).toBeGreaterThan(0);
+      expect(bytesTenant).toMatchObject({ estimate: 0, kept: 0, matched: false, message: "no sampled record matched", method: "no-match", rough: true });
+      expect(bytesTenant.ci95[0]).toBe(0);
+      expect(bytesTenant.ci95[1]).toBeCloseTo(Math.min(Number(bytesTenant.exact.bytes), -Math.log(0.025) * tauAlpha), 6);
+      // beta kept every record (k above each window's count, τ = 0): there an empty subset is exactly 0.
+      expect(await maxTau(tenants.beta.id)).toBe(0);
+      expect(await answer(keys.beta, { ...RANGE, where, metric: "bytes" })).toMatchObject({ ci95: [0, 0], method: "exact", matched: false });
     });
 
     it("sums counters past 2^53 exactly and answers them as decimal strings", async () => {

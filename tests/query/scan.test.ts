@@ -1,8 +1,9 @@
+import jStat from "jstat";
 import fc from "fast-check";
 import { describe, expect, it } from "vitest";
 import { parseAddress } from "~/net/address";
 import { coveringPrefix, formatPrefix } from "~/net/prefix";
-import { buildAnswer, intervalJson } from "~/query/answer";
+import { buildAnswer, intervalJson, unseenPerWeight } from "~/query/answer";
 import { toColumns, type KeptRow } from "~/query/columns";
 import { parseEstimateRequest, type EstimateQuery, type EstimateRequest, type Metric } from "~/query/request";
 import { compileQuery, scan, type ScanReservoir } from "~/query/scan";
@@ -325,15 +326,23 @@ describe("the interval of a scanned estimate (toInterval)", () => {
     const reservoirs = toScan([{ tau: 1000, collector: "edge-1", windowStart: 0, records }]);
     const q = parse({ from: 0, to: 1, groupBy: "dport" });
     const result = scan(reservoirs, compileQuery(q, "bytes"));
-    const answer = buildAnswer({ metric: "bytes", result, windows: 1, collectors: ["edge-1"], exact: { records: 3n, bytes: 5020n, packets: 3n }, from: 0, to: 1 });
+    const context = { unseenTerm: 1000, cap: 10_000 };
+    const answer = buildAnswer({ metric: "bytes", result, windows: 1, collectors: ["edge-1"], exact: { records: 3n, bytes: 5020n, packets: 3n }, from: 0, to: 1, context });
     expect(answer.estimate).toBe(7000);
-    expect(answer.ci95[0]).toBe(5000);
-    expect(answer.ci95[1]).toBeCloseTo(7000 + 1.959963984540054 * Math.sqrt(2 * 1000 * 990), 6);
-    expect(answer.rough).toBe(true); // two uncertain records, under 10
-    // The port-80 group has nothing certain: its bound stops at 0, not at 2000 − 1.96·1407.
+    // Two uncertain terms: the gamma interval of Fay and Feuer (Statistics in Medicine 16, 1997,
+    // eqs. 4–5) on the uncertain part y = 2000, v = 2·1000·990, wM = 1000, added to the certain 5000;
+    // quantiles from jstat (npm jstat). Its upper bound stops at the range's total (cap).
+    const y = 2000;
+    const v = 2 * 1000 * 990;
+    expect(answer).toMatchObject({ method: "gamma", rough: true, roughReason: "the normal approximation would be poor: 2 uncertain terms" });
+    expect(answer.ci95[0]).toBeCloseTo(5000 + (v / y) * jStat.gamma.inv(0.025, (y * y) / v, 1), 6);
+    expect(answer.ci95[0]).toBeGreaterThanOrEqual(5000);
+    expect(answer.ci95[1]).toBe(10_000);
+    // The port-80 group has nothing certain: its lower bound is the gamma bound of 2000 alone.
     const port80 = answer.groups.find((g) => g.key === "80")!;
     expect(port80.estimate).toBe(2000);
-    expect(port80.ci95[0]).toBe(0);
+    expect(port80.ci95[0]).toBeCloseTo((v / y) * jStat.gamma.inv(0.025, (y * y) / v, 1), 6);
+    expect(port80.ci95[1]).toBeCloseTo(((v + 1e6) / (y + 1000)) * jStat.gamma.inv(0.975, (y + 1000) ** 2 / (v + 1e6), 1), 6);
     expect(answer.exact).toEqual({ records: 3, bytes: 5020, packets: 3 });
   });
 
@@ -341,7 +350,20 @@ describe("the interval of a scanned estimate (toInterval)", () => {
     const result = { total: { ...EMPTY_SUM }, groups: [] };
     const answer = buildAnswer({ metric: "bytes", result, windows: 0, collectors: [], exact: { records: 0n, bytes: 2n ** 64n, packets: 2n ** 53n - 1n }, from: 0, to: 1 });
     expect(answer.exact).toEqual({ records: 0, bytes: "18446744073709551616", packets: 9007199254740991 });
-    expect(intervalJson(EMPTY_SUM)).toEqual({ estimate: 0, stdError: 0, ci95: [0, 0], kept: 0, rough: true });
+    // τ = 0 everywhere: nothing was left out, so an empty subset is exactly 0.
+    expect(intervalJson(EMPTY_SUM)).toMatchObject({ estimate: 0, stdError: 0, ci95: [0, 0], kept: 0, method: "exact", matched: false });
+    // τ > 0: "no sampled record matched" and an upper bound, never [0, 0] (Garwood 1936: 3.689 for a count of 0).
+    const none = intervalJson(EMPTY_SUM, { unseenTerm: 1000 });
+    expect(none).toMatchObject({ ci95: [0, expect.closeTo(1000 * -Math.log(0.025), 6)], method: "no-match", matched: false, message: "no sampled record matched", rough: true });
+  });
+});
+
+describe("what one record left out may add (unseenPerWeight)", () => {
+  it("is 1 per unit of weight except bytes under a packet weight: 65 535, the largest IPv4 Total Length (RFC 791 §3.1, a 16-bit field)", () => {
+    expect(unseenPerWeight("packets", "bytes")).toBe(2 ** 16 - 1);
+    for (const metric of ["bytes", "packets", "flows"] as const) expect(unseenPerWeight("bytes", metric)).toBe(1);
+    expect(unseenPerWeight("packets", "packets")).toBe(1);
+    expect(unseenPerWeight("packets", "flows")).toBe(1);
   });
 });
 
