@@ -3,6 +3,9 @@ import { data, Form, useNavigation } from "react-router";
 import { requireMember } from "~/auth/guards.server";
 import { Button, ErrorState, Field, inputClass, PageHeader, Panel } from "~/components/ui";
 import { SETTING_LABELS, settingText, WINDOW_CHOICES, windowLabel, type SettingField } from "~/settings/fields";
+import { ADVISOR_SHARES } from "~/settings/advisor";
+import { sampleSizeAdvice, TRADE_OFF_SHARE, type SampleSizeAdvice } from "~/settings/advisor.server";
+import { maxHourlySampleSize } from "~/sampling/rollup";
 import { parseSettingsForm, reservoirShapes, updateTenantSettings } from "~/settings/settings.server";
 import type { Route } from "./+types/console.settings";
 
@@ -20,10 +23,12 @@ export async function loader({ request, context, params }: Route.LoaderArgs) {
       weightAttribute: tenant.weightAttribute,
       retentionDays: tenant.retentionDays,
       hourlyRetentionDays: tenant.hourlyRetentionDays,
+      hourlySampleSize: tenant.hourlySampleSize,
       // Only whether it is on: the coordination secret never leaves the server.
       coordinated: tenant.coordinated,
     },
     shapes: await reservoirShapes(context.db, tenant.id),
+    advice: await sampleSizeAdvice(context.db, tenant, Date.now()),
   };
 }
 
@@ -41,7 +46,7 @@ export async function action({ request, context, params }: Route.ActionArgs) {
 }
 
 export default function Settings({ loaderData, actionData }: Route.ComponentProps) {
-  const { tenant, settings, shapes } = loaderData;
+  const { tenant, settings, shapes, advice } = loaderData;
   const navigation = useNavigation();
   const saving = navigation.state === "submitting";
   const failed = actionData && !actionData.ok ? actionData : undefined;
@@ -52,6 +57,7 @@ export default function Settings({ loaderData, actionData }: Route.ComponentProp
     weightAttribute: settings.weightAttribute,
     retentionDays: String(settings.retentionDays),
     hourlyRetentionDays: String(settings.hourlyRetentionDays),
+    hourlySampleSize: settings.hourlySampleSize === null ? "" : String(settings.hourlySampleSize),
     coordinated: settings.coordinated ? "on" : "",
   };
   const error = (f: SettingField) => (errors[f] ? `${SETTING_LABELS[f]} ${errors[f]}.` : undefined);
@@ -179,6 +185,34 @@ export default function Settings({ loaderData, actionData }: Route.ComponentProp
             <Setting
               explain={
                 <>
+                  K, the records each hourly window keeps when fine windows are rolled up (blank: the sample size k). Any K from 16 up to the sum of the fine
+                  windows&apos; k ({maxHourlySampleSize(settings.sampleSize, settings.windowSeconds)} = k × windows per hour) gives unbiased estimates: at most k it is
+                  the merge of Duffield, Lund and Thorup (J. ACM 2007), exactly the sample one reservoir over the hour would keep; above k the roll-up keeps every record
+                  whose priority beats every fine window&apos;s τ (fewer than K when their τ differ), still unbiased. Every interval after the roll-up is wider, not
+                  only small subsets&apos;: see the trade-off below.
+                </>
+              }
+            >
+              <Field label={SETTING_LABELS.hourlySampleSize} htmlFor="hourlySampleSize" error={error("hourlySampleSize")}>
+                <input
+                  id="hourlySampleSize"
+                  name="hourlySampleSize"
+                  type="number"
+                  inputMode="numeric"
+                  min={16}
+                  max={maxHourlySampleSize(settings.sampleSize, settings.windowSeconds)}
+                  step={1}
+                  placeholder={String(settings.sampleSize)}
+                  defaultValue={shown.hourlySampleSize}
+                  aria-invalid={errors.hourlySampleSize ? true : undefined}
+                  className={`${inputClass} w-40 font-mono`}
+                />
+              </Field>
+            </Setting>
+
+            <Setting
+              explain={
+                <>
                   The same flow exported by two collectors gets the same priority (its random draw comes from a keyed hash of its addresses, ports, protocol and
                   start time), so a merge of those collectors counts it once. It applies to records received from then on; windows sampled before are merged as
                   independent samples. The tenant's key is made when first turned on and never changes.
@@ -216,6 +250,12 @@ export default function Settings({ loaderData, actionData }: Route.ComponentProp
 
         <Panel title="Stored reservoirs">
           <ReservoirShapes shapes={shapes} current={settings} />
+        </Panel>
+      </div>
+
+      <div className="mt-6 grid gap-6">
+        <Panel title="Sample-size advisor">
+          <SampleSizeAdvisor advice={advice} settings={settings} />
         </Panel>
       </div>
     </>
@@ -258,7 +298,7 @@ function Setting({ children, explain, aside }: { children: ReactNode; explain: R
   );
 }
 
-function SavedNotice({ changes }: { changes: { field: SettingField; old: number | string | boolean; new: number | string | boolean }[] }) {
+function SavedNotice({ changes }: { changes: { field: SettingField; old: number | string | boolean | null; new: number | string | boolean | null }[] }) {
   return (
     <div role="status" className="mb-6 rounded-md border-l-4 border-sand-300 bg-river-900 px-4 py-3 text-sm text-river-100">
       {changes.length === 0 ? (
@@ -270,6 +310,7 @@ function SavedNotice({ changes }: { changes: { field: SettingField; old: number 
               "Saved.",
               changes.some((c) => c.field === "sampleSize" || c.field === "windowSeconds") ? "Windows created from now on use the new k and length." : "",
               changes.some((c) => c.field === "retentionDays" || c.field === "hourlyRetentionDays") ? "The next roll-up run applies the new retention." : "",
+              changes.some((c) => c.field === "hourlySampleSize") ? "The next roll-up run writes hourly windows of the new size." : "",
               changes.some((c) => c.field === "coordinated") ? "Records received from now on are sampled with the new priorities." : "",
             ]
               .filter(Boolean)
@@ -326,4 +367,82 @@ function ReservoirShapes({
 /** Epoch ms as `YYYY-MM-DD HH:MM`, UTC, so server and browser render the same text. */
 function utcDay(ms: number): string {
   return new Date(ms).toISOString().slice(0, 16).replace("T", " ");
+}
+
+const percent = (x: number) => (Number.isFinite(x) ? `±${(100 * 1.959963984540054 * x).toPrecision(2)}%` : "—");
+
+/**
+ * The advisor (app/settings/advisor.ts): 95% half-widths (1.96 × relative standard error) for a
+ * subset holding a share of the weight, from the tenant's own last 24 h of fine windows, and the
+ * roll-up's storage against interval width.
+ */
+function SampleSizeAdvisor({
+  advice,
+  settings,
+}: {
+  advice: SampleSizeAdvice;
+  settings: { sampleSize: number; retentionDays: number; hourlyRetentionDays: number; hourlySampleSize: number | null; weightAttribute: string };
+}) {
+  if (advice.windows === 0) {
+    return <p className="text-sm text-river-300">No fine windows in the last 24 hours yet: the advisor reads the tenant&apos;s own recent samples.</p>;
+  }
+  const fineDays = settings.retentionDays;
+  const hourlyDays = Math.max(0, settings.hourlyRetentionDays - settings.retentionDays);
+  const K = settings.hourlySampleSize ?? settings.sampleSize;
+  return (
+    <div className="flex flex-col gap-4 text-sm text-river-200">
+      <p className="max-w-3xl">
+        {`From ${advice.windows} fine windows of the last 24 hours (stream collectors). For a subset holding a share of the ${settings.weightAttribute}, the 95% interval's half-width as a share of its true value, over the same windows: `}
+        <strong>bound</strong> — at most 1.96 / (share × √(k − 1)) for one window, from the variance bound W²/(k − 1) of a priority sample&apos;s total
+        (Szegedy, STOC 2006), which holds for any subset because the per-record estimates are uncorrelated; <strong>empirical</strong> — from the kept
+        records&apos; v̂ = τ·max(0, τ − w) (Duffield, Lund, Thorup, J. ACM 2007) for a random subset of that share: smaller k is read off the stored samples exactly,
+        larger k (marked *) is scaled by (k − 1)/(k′ − 1). Read: to get ±5% on a 1% subset, pick the first k whose 1% column is at most ±5%.
+      </p>
+      <table className="w-full max-w-3xl text-left font-mono text-xs">
+        <thead className="text-river-300">
+          <tr>
+            <th className="py-1">k</th>
+            {ADVISOR_SHARES.map((s) => (
+              <th key={s} className="py-1">{`${100 * s}%: bound / empirical`}</th>
+            ))}
+          </tr>
+        </thead>
+        <tbody>
+          {advice.rows.map((row) => (
+            <tr key={row.k} className={row.current ? "text-sand-200" : "text-river-100"}>
+              <td className="py-1">{`${row.k}${row.current ? " (current)" : ""}`}</td>
+              {row.bound.map((b, i) => (
+                <td key={i} className="py-1">{`${percent(b)} / ${percent(row.empirical[i])}${row.scaled ? "*" : ""}`}</td>
+              ))}
+            </tr>
+          ))}
+        </tbody>
+      </table>
+      <p className="max-w-3xl">
+        {`Roll-up trade-off (the stored windows rolled up here with the same draws), for a subset holding ${100 * TRADE_OFF_SHARE}% of the ${settings.weightAttribute}; held = ${fineDays} days of fine windows and ${hourlyDays} days of hourly ones:`}
+      </p>
+      <table className="w-full max-w-3xl text-left font-mono text-xs">
+        <thead className="text-river-300">
+          <tr>
+            <th className="py-1">hourly K</th>
+            <th className="py-1">kept / hour fine → hourly</th>
+            <th className="py-1">kept records held</th>
+            <th className="py-1">1% subset fine → hourly</th>
+            <th className="py-1">intervals wider</th>
+          </tr>
+        </thead>
+        <tbody>
+          {advice.rollUp.map((t) => (
+            <tr key={t.hourlySampleSize} className={t.hourlySampleSize === K ? "text-sand-200" : "text-river-100"}>
+              <td className="py-1">{`${t.hourlySampleSize}${t.hourlySampleSize === K ? " (current)" : ""}`}</td>
+              <td className="py-1">{`${Math.round(t.keptPerHourFine)} → ${Math.round(t.keptPerHourHourly)}`}</td>
+              <td className="py-1">{Math.round(24 * (fineDays * t.keptPerHourFine + hourlyDays * t.keptPerHourHourly)).toLocaleString("en-US")}</td>
+              <td className="py-1">{`${percent(t.rseFine)} → ${percent(t.rseHourly)}`}</td>
+              <td className="py-1">{Number.isFinite(t.widening) ? `${t.widening.toFixed(2)}×` : "—"}</td>
+            </tr>
+          ))}
+        </tbody>
+      </table>
+    </div>
+  );
 }

@@ -32,6 +32,8 @@ export interface AdvisorRecord {
 export interface AdvisorWindow {
   windowStart: number;
   windowSeconds: number;
+  /** Roll-ups are per collector: windows of different collectors never join. */
+  collector?: number | string;
   k: number;
   tau: number;
   /** The window's exact total weight (its counters), not an estimate. */
@@ -131,7 +133,7 @@ export function adviseSampleSize(input: AdviceInput): AdvisorRow[] {
 
 export interface RollUpTradeOff {
   hourlySampleSize: number;
-  /** Kept records per hour: fine windows as stored, and the hourly window the roll-up would write. */
+  /** Kept records per hour (all collectors): fine windows as stored, and the hourly window the roll-up would write. */
   keptPerHourFine: number;
   keptPerHourHourly: number;
   /** Empirical RSE of a random subset holding `share` of the weight, over the same hours. */
@@ -147,12 +149,15 @@ export interface RollUpTradeOff {
  * those the retention run would produce with the same draws.
  */
 export function rollUpTradeOff(windows: readonly AdvisorWindow[], hourlySampleSize: number, share: number): RollUpTradeOff {
-  const hours = new Map<number, AdvisorWindow[]>();
+  const hours = new Map<string, AdvisorWindow[]>();
+  const distinctHours = new Set<number>();
   for (const w of windows) {
     const hour = Math.floor(w.windowStart / 3_600_000) * 3_600_000;
-    const list = hours.get(hour);
+    distinctHours.add(hour);
+    const key = `${w.collector ?? ""}:${hour}`;
+    const list = hours.get(key);
     if (list) list.push(w);
-    else hours.set(hour, [w]);
+    else hours.set(key, [w]);
   }
   let fineKept = 0;
   let fineVariance = 0;
@@ -172,7 +177,7 @@ export function rollUpTradeOff(windows: readonly AdvisorWindow[], hourlySampleSi
       total += w.totalWeight;
     }
   }
-  const n = Math.max(1, hours.size);
+  const n = Math.max(1, distinctHours.size);
   const rseFine = empiricalRse(fineVariance, total, share);
   const rseHourly = empiricalRse(hourlyVariance, total, share);
   return {

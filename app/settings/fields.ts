@@ -7,6 +7,7 @@ export const SETTING_LABELS = {
   weightAttribute: "Weight attribute",
   retentionDays: "Fine windows kept (days)",
   hourlyRetentionDays: "Hourly windows kept until (days old)",
+  hourlySampleSize: "Hourly sample size",
   coordinated: "Coordinated priorities",
 } as const;
 export type SettingField = keyof typeof SETTING_LABELS;
@@ -19,6 +20,8 @@ export interface TenantSettings {
   retentionDays: number;
   /** M ≥ N: every window is deleted once this many days old. */
   hourlyRetentionDays: number;
+  /** K of the hourly windows the roll-up writes; null: the tenant's k. At most k · 3600 / window seconds. */
+  hourlySampleSize: number | null;
   coordinated: boolean;
 }
 
@@ -31,7 +34,8 @@ export function windowLabel(seconds: number): string {
 }
 
 /** A setting's value as a person reads it in a confirmation or the ledger. */
-export function settingText(field: SettingField, value: number | string | boolean): string {
+export function settingText(field: SettingField, value: number | string | boolean | null): string {
+  if (field === "hourlySampleSize" && value === null) return "the sample size k";
   if (field === "windowSeconds") return windowLabel(Number(value));
   if (field === "retentionDays" || field === "hourlyRetentionDays") return Number(value) === 1 ? "1 day" : `${value} days`;
   if (field === "coordinated") return value ? "on" : "off";

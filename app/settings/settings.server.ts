@@ -4,6 +4,7 @@ import { z } from "zod";
 import { recordAudit } from "~/audit.server";
 import type { Db } from "~/db/client.server";
 import { reservoirs, tenants, WEIGHT_ATTRIBUTES } from "~/db/schema.server";
+import { maxHourlySampleSize } from "~/sampling/rollup";
 import { newTenantSchema, sampleSizeSchema, windowSecondsSchema } from "~/tenants.server";
 import { SETTING_LABELS, type SettingField, type TenantSettings } from "./fields";
 
@@ -27,6 +28,12 @@ const settingsFormSchema = z
     weightAttribute: z.enum(WEIGHT_ATTRIBUTES, { error: "must be bytes or packets" }),
     retentionDays: wholeNumber(days),
     hourlyRetentionDays: wholeNumber(days),
+    // Blank: the tenant's k (stored as null, so a later change of k carries the roll-up along).
+    hourlySampleSize: z
+      .string({ error: "must be a whole number or blank" })
+      .optional()
+      .transform((v) => v?.trim() || null)
+      .pipe(wholeNumber(sampleSizeSchema).nullable()),
     // A checkbox posts "on" when ticked and nothing otherwise.
     coordinated: z
       .enum(["on", "true"], { error: "must be ticked or not" })
@@ -39,6 +46,18 @@ const settingsFormSchema = z
         code: "custom",
         path: ["hourlyRetentionDays"],
         message: `must be at least ${s.retentionDays}, the days fine windows are kept: fine windows become hourly ones, which cannot go before them`,
+      });
+    }
+    // Above the sum of the fine windows' k an hour has no more kept records to keep (app/sampling/rollup.ts).
+    const most = maxHourlySampleSize(s.sampleSize, s.windowSeconds);
+    if (s.hourlySampleSize !== null && s.hourlySampleSize > most) {
+      ctx.addIssue({
+        code: "custom",
+        path: ["hourlySampleSize"],
+        message:
+          most === s.sampleSize
+            ? `must be at most ${most}: hour-long windows are not rolled up, so it cannot exceed k`
+            : `must be at most ${most}, the sum of the k of the ${3600 / s.windowSeconds} fine windows of an hour (${s.sampleSize} × ${3600 / s.windowSeconds}): more has nothing to keep`,
       });
     }
   });
@@ -63,8 +82,8 @@ export function parseSettingsForm(form: Record<string, unknown>): SettingsParse 
 
 export interface SettingChange {
   field: SettingField;
-  old: number | string | boolean;
-  new: number | string | boolean;
+  old: number | string | boolean | null;
+  new: number | string | boolean | null;
 }
 
 /**

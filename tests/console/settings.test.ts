@@ -2,6 +2,7 @@ import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { ensureUserByEmail, setMembership } from "~/auth/users.server";
 import { readStoredWindows } from "~/samples/store.server";
 import { coordinatedUniform, flowKeyBytes } from "~/sampling/coordinated";
+import { runRetention } from "~/retention/rollup.server";
 import { createTenant } from "~/tenants.server";
 import { keyFor, postFlows, startTestServer, tenantWithKey, type TestServer } from "../helpers/server";
 import { signIn, type SignedIn } from "../helpers/session";
@@ -26,7 +27,9 @@ const flowsAt = (start: number, n: number) =>
   }));
 
 // A ticked checkbox posts "on"; an unticked one posts nothing (HTML Living Standard, form submission).
-const form = (values: Partial<Record<"sampleSize" | "windowSeconds" | "weightAttribute" | "retentionDays" | "hourlyRetentionDays" | "coordinated", string>>) => ({
+const form = (
+  values: Partial<Record<"sampleSize" | "windowSeconds" | "weightAttribute" | "retentionDays" | "hourlyRetentionDays" | "hourlySampleSize" | "coordinated", string>>,
+) => ({
   sampleSize: "64",
   windowSeconds: "300",
   weightAttribute: "bytes",
@@ -270,5 +273,56 @@ describe("console Settings", () => {
       const u = coordinatedUniform(Uint8Array.from(Buffer.from(secret, "hex")), flowKeyBytes(kept[0].item));
       expect(kept[0].priority).toBe(900 / u);
     });
+  });
+
+  it("validates the hourly sample size against k × windows per hour, records it in the ledger, and the roll-up keeps that many", async () => {
+    const { tenant: row, key, path } = await tenant();
+    // k = 64, 5-minute windows: an hour's fine windows keep at most 12 × 64 = 768 records
+    // together, so a larger hourly K has nothing more to keep (app/sampling/rollup.ts).
+    const cases: [Record<string, string>, string][] = [
+      [form({ hourlySampleSize: "769" }), "Hourly sample size must be at most 768, the sum of the k of the 12 fine windows of an hour (64 × 12): more has nothing to keep."],
+      [form({ hourlySampleSize: "8" }), "Hourly sample size must be at least 16."],
+      [form({ hourlySampleSize: "1e3" }), "Hourly sample size must be a whole number."],
+      [form({ windowSeconds: "3600", hourlySampleSize: "128" }), "Hourly sample size must be at most 64: hour-long windows are not rolled up, so it cannot exceed k."],
+    ];
+    for (const [fields, message] of cases) {
+      const res = await ada.post(path, fields);
+      expect(res.status, message).toBe(400);
+      expect(await res.text(), message).toContain(message);
+    }
+    expect(await sql("SELECT id FROM audit_log WHERE tenant_id = ?", [row.id])).toHaveLength(0);
+
+    const saved = await ada.post(path, form({ hourlySampleSize: "256" }));
+    expect(saved.status).toBe(200);
+    expect(await saved.text()).toContain("Hourly sample size: the sample size k → 256");
+    expect((await sql("SELECT hourly_sample_size FROM tenants WHERE id = ?", [row.id]))[0].hourly_sample_size).toBe(256);
+    const ledger = await sql("SELECT detail FROM audit_log WHERE tenant_id = ? AND action = 'settings.update'", [row.id]);
+    expect(ledger.map((r) => JSON.parse(String(r.detail)))).toEqual([{ old: { hourlySampleSize: null }, new: { hourlySampleSize: 256 } }]);
+
+    // Twelve 5-minute windows of 100 records each (64 kept in each), then a roll-up far later.
+    const hour = Date.UTC(2026, 0, 5, 2, 0);
+    for (let w = 0; w < 12; w++) expect((await post(key, flowsAt(hour + w * 300_000, 100))).status).toBe(200);
+    // The records' own sums, computed here from what was sent.
+    const sent = Array.from({ length: 12 }, (_, w) => flowsAt(hour + w * 300_000, 100)).flat();
+    const exact = { records: sent.length, bytes: sent.reduce((s, r) => s + r.bytes, 0), packets: sent.reduce((s, r) => s + r.packets, 0) };
+    await runRetention({ db: t.server.db, node: "test-node" }, hour + 40 * 24 * HOUR_MS, { tenant: row.slug });
+    const hourly = await sql("SELECT window_seconds, k, records, bytes, packets, (SELECT count(*) FROM kept_records k WHERE k.reservoir_id = r.id) AS kept FROM reservoirs r WHERE tenant_id = ?", [row.id]);
+    expect(hourly).toHaveLength(1);
+    // Exact counters add up exactly (DLT 2007 merge: counters are not sampled).
+    expect(hourly[0]).toMatchObject({ window_seconds: 3600, k: 256, records: exact.records });
+    expect([Number(hourly[0].bytes), Number(hourly[0].packets)]).toEqual([exact.bytes, exact.packets]);
+    // More than the tenant's k (what the merge rule of DLT 2007 alone would keep), at most K.
+    expect(Number(hourly[0].kept)).toBeGreaterThan(64);
+    expect(Number(hourly[0].kept)).toBeLessThanOrEqual(256);
+  });
+
+  it("shows the sample-size advisor with the tenant's own figures", async () => {
+    const { key, path } = await tenant();
+    const now = Date.now();
+    expect((await post(key, flowsAt(now - 3 * HOUR_MS, 200))).status).toBe(200);
+    const html = await (await ada.fetch(path)).text();
+    expect(html).toContain("Sample-size advisor");
+    expect(html).toContain("From 1 fine windows of the last 24 hours");
+    expect(html).toMatch(/64 \(current\)/);
   });
 });
