@@ -24,6 +24,9 @@ export type CalibrationMetric = (typeof CALIBRATION_METRICS)[number];
 /** Windows checked in one run at most: bounds a run's memory and time; a backlog goes over several runs. */
 export const MAX_WINDOWS_PER_RUN = 500;
 
+/** Expired checks deleted in one run at most, so a shortened retention does not hold the write lock long. */
+const MAX_DELETED_PER_RUN = 10_000;
+
 const DAY_MS = 86_400_000;
 
 /**
@@ -114,10 +117,11 @@ export interface CalibrationOptions {
 /**
  * Checks closed windows not yet checked, oldest first, at most `maxWindows` of them, for
  * every tenant; then deletes checks of windows older than their tenant's hourly retention (M
- * days, or N when larger, as retention deletes windows). A window counts as closed once its
- * end plus a grace of one window length has passed `now`: records may arrive a little late
- * (collectors flush on their own timers), and a window still changing would be tested against
- * a total that was not yet final.
+ * days, or N when larger, as retention deletes windows), at most MAX_DELETED_PER_RUN of them.
+ * A window counts as closed once its end plus a grace of one window length has passed `now`:
+ * records may arrive a little late (collectors flush on their own timers), and a window still
+ * changing would be tested against a total that was not yet final. Records that arrive later
+ * still do not change a check already made.
  *
  * @example await runCalibrationChecks(db, Date.now()) // { windows: 500, rows: 1500, deleted: 0, more: true }
  */
@@ -158,8 +162,8 @@ export async function runCalibrationChecks(db: Db, now: number, options: Calibra
   }
   const deleted = await db.$client.execute({
     sql:
-      "DELETE FROM window_checks WHERE window_start + window_seconds * 1000 <= ? - " +
-      `(SELECT max(t.hourly_retention_days, t.retention_days) FROM tenants t WHERE t.id = window_checks.tenant_id) * ${DAY_MS}`,
+      "DELETE FROM window_checks WHERE id IN (SELECT w.id FROM window_checks w JOIN tenants t ON t.id = w.tenant_id " +
+      `WHERE w.window_start + w.window_seconds * 1000 <= ? - max(t.hourly_retention_days, t.retention_days) * ${DAY_MS} LIMIT ${MAX_DELETED_PER_RUN})`,
     args: [now],
   });
   return { windows: todo.length, rows, deleted: deleted.rowsAffected, more };
