@@ -70,6 +70,8 @@ export interface EstimateAnswer extends IntervalJson {
   to: string;
   /** The window lengths used, one entry per length, in time order of their first window. */
   resolution: ResolutionJson[];
+  /** With a group-by: how the top groups were chosen, and why their estimates may be overstated (selection.ts). */
+  selection?: SelectionJson;
 }
 
 /**
