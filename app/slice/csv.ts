@@ -10,7 +10,7 @@
  */
 import type { EstimateAnswer, IntervalJson } from "../query/answer.ts";
 
-export const CSV_COLUMNS = ["key", "estimate", "std_error", "ci95_low", "ci95_high", "kept", "rough"] as const;
+export const CSV_COLUMNS = ["key", "estimate", "std_error", "ci95_low", "ci95_high", "kept", "rough", "method", "rough_reason"] as const;
 
 /** The key of the line that holds the whole subset, ahead of the groups. */
 export const TOTAL_KEY = "total";
@@ -32,7 +32,17 @@ export function csvRecord(fields: readonly string[]): string {
 }
 
 function row(key: string, e: IntervalJson): string {
-  return csvRecord([key, String(e.estimate), String(e.stdError), String(e.ci95[0]), String(e.ci95[1]), String(e.kept), String(e.rough)]);
+  return csvRecord([
+    key,
+    String(e.estimate),
+    String(e.stdError),
+    String(e.ci95[0]),
+    String(e.ci95[1]),
+    String(e.kept),
+    String(e.rough),
+    e.method,
+    e.roughReason ?? "",
+  ]);
 }
 
 /**
@@ -41,8 +51,11 @@ function row(key: string, e: IntervalJson): string {
  */
 export function estimatesCsv(answer: EstimateAnswer, tenant: string, query: string): string {
   const comment =
-    `# Weir estimates for tenant ${tenant} are statistical (priority sampling; 95% intervals by the normal approximation; ` +
-    `rough = fewer than 10 uncertain sampled records) and not exact accounting: for billing use exact counts. Query: ${query}`;
+    `# Weir estimates for tenant ${tenant} are statistical (priority sampling; 95% intervals: method normal = estimate ± 1.96 SE; ` +
+    `gamma = Fay-Feuer gamma interval where the normal approximation would be poor and then rough with its reason; ` +
+    `no-match = no sampled record matched and the interval is 0 up to a bound) and not exact accounting: for billing use exact counts.` +
+    // How the groups were chosen (selection.ts): the winner's-curse note travels with the numbers.
+    `${answer.selection ? ` Groups: ${answer.selection.note}` : ""} Query: ${query}`;
   const lines = [comment.replace(/[,"\r\n]/g, " "), csvRecord(CSV_COLUMNS), row(TOTAL_KEY, answer), ...answer.groups.map((g) => row(g.key, g))];
   return lines.map((line) => `${line}\r\n`).join("");
 }

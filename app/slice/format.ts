@@ -7,6 +7,7 @@
  * locale en-US, so the server and the browser write the same text.
  */
 import type { Counter } from "../query/answer.ts";
+import type { IntervalMethod } from "../sampling/interval.ts";
 import type { GroupByKind, Metric } from "../query/request.ts";
 
 const BYTE_UNITS = ["B", "KB", "MB", "GB", "TB", "PB", "EB", "ZB"];
@@ -115,6 +116,42 @@ export function formatUtc(ms: number | string): string {
 /** A counter of the API (number, or decimal text above 2^53) as a float for ratios. */
 export function counterValue(counter: Counter): number {
   return typeof counter === "number" ? counter : Number(counter);
+}
+
+/**
+ * How an interval was found, in the console's words; null for the normal interval, the usual
+ * case, which needs no note (methods: app/sampling/interval.ts).
+ *
+ * @example methodNote("gamma") // "gamma interval"
+ */
+export function methodNote(method: IntervalMethod): string | null {
+  return method === "normal" ? null : METHOD_NOTES[method];
+}
+
+const METHOD_NOTES: Record<IntervalMethod, string> = {
+  exact: "exact",
+  normal: "normal interval",
+  gamma: "gamma interval",
+  "no-match": "no sampled record matched",
+};
+
+/**
+ * An interval as a reader should see it: "estimate ± half-width" for a symmetric normal interval
+ * nobody lifted, "low – high" otherwise, and "0 – X" when nothing matched — never "0 ± 0" while
+ * records may have been left out.
+ *
+ * @example intervalText({ estimate: 0, ci95: [0, 3689], method: "no-match" }, "bytes") // "0 – 3.69 KB"
+ * @example intervalText({ estimate: 1000, ci95: [902, 1098], method: "normal" }, "bytes") // "1.00 KB ± 98 B"
+ */
+export function intervalText(e: { estimate: number; ci95: [number, number]; method: IntervalMethod }, metric: Metric): string {
+  const [low, high] = e.ci95;
+  if (e.method === "exact") return formatMetric(e.estimate, metric);
+  if (e.method === "no-match") return `0 – ${formatMetric(high, metric)}`;
+  const half = high - e.estimate;
+  if (e.method === "normal" && Math.abs(e.estimate - low - half) <= 1e-9 * Math.max(1, Math.abs(high))) {
+    return `${formatMetric(e.estimate, metric)} ± ${formatMetric(half, metric)}`;
+  }
+  return formatMetricRange(low, high, metric);
 }
 
 /** What each group-by kind is called in the form and in result headings. */

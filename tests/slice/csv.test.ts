@@ -82,12 +82,25 @@ describe("the Slice export", () => {
     ci95: [1214.9, 1254.1],
     kept: 40,
     rough: false,
+    method: "normal",
+    roughReason: null,
+    matched: true,
     windows: 2,
     collectors: ["edge-1"],
     exact: { records: 90, bytes: 2000, packets: 30 },
     groups: [
-      { key: "198.51.100.0/24", estimate: 1000, stdError: 8, ci95: [984.3, 1015.7], kept: 35, rough: false },
-      { key: "edge,with comma", estimate: 234.5, stdError: 6, ci95: [222.7, 246.3], kept: 5, rough: true },
+      { key: "198.51.100.0/24", estimate: 1000, stdError: 8, ci95: [984.3, 1015.7], kept: 35, rough: false, method: "normal", roughReason: null, matched: true },
+      {
+        key: "edge,with comma",
+        estimate: 234.5,
+        stdError: 6,
+        ci95: [222.7, 246.3],
+        kept: 5,
+        rough: true,
+        method: "gamma",
+        roughReason: "the normal approximation would be poor: 5 uncertain terms",
+        matched: true,
+      },
     ],
     from: "2024-05-01T02:00:00.000Z",
     to: "2024-05-01T03:00:00.000Z",
@@ -99,6 +112,10 @@ describe("the Slice export", () => {
   test("opens with a comment line: statistical, not for billing, and the query; no comma or quote in it", () => {
     expect(lines[0]).toMatch(/^# Weir estimates for tenant riverline are statistical/);
     expect(lines[0]).toMatch(/for billing use exact counts/);
+    // The caution names each interval method the file may hold (app/sampling/interval.ts).
+    expect(lines[0]).toMatch(/normal = estimate ± 1.96 SE/);
+    expect(lines[0]).toMatch(/gamma = Fay-Feuer/);
+    expect(lines[0]).toMatch(/no-match = no sampled record matched/);
     expect(lines[0]).toContain("Query: from=2024-05-01T02:00:00Z; to=2024-05-01T03:00:00Z; metric=bytes; groupBy=src");
     expect(lines[0]).not.toMatch(/[,"]/);
   });
@@ -108,10 +125,10 @@ describe("the Slice export", () => {
     expect(text.replace(/\r\n/g, "")).not.toMatch(/[\r\n]/);
     const records = readRfc4180(text.slice(text.indexOf("\r\n") + 2));
     expect(records).toEqual([
-      ["key", "estimate", "std_error", "ci95_low", "ci95_high", "kept", "rough"],
-      ["total", "1234.5", "10", "1214.9", "1254.1", "40", "false"],
-      ["198.51.100.0/24", "1000", "8", "984.3", "1015.7", "35", "false"],
-      ["edge,with comma", "234.5", "6", "222.7", "246.3", "5", "true"],
+      ["key", "estimate", "std_error", "ci95_low", "ci95_high", "kept", "rough", "method", "rough_reason"],
+      ["total", "1234.5", "10", "1214.9", "1254.1", "40", "false", "normal", ""],
+      ["198.51.100.0/24", "1000", "8", "984.3", "1015.7", "35", "false", "normal", ""],
+      ["edge,with comma", "234.5", "6", "222.7", "246.3", "5", "true", "gamma", "the normal approximation would be poor: 5 uncertain terms"],
     ]);
   });
 

@@ -1,5 +1,5 @@
 import { describe, expect, test } from "vitest";
-import { axisValue, exactMetric, formatBytes, formatCount, formatMetric, formatMetricRange, formatPercent, formatUtc } from "~/slice/format";
+import { axisValue, exactMetric, formatBytes, formatCount, formatMetric, formatMetricRange, formatPercent, formatUtc, intervalText, methodNote } from "~/slice/format";
 
 describe("numbers as the console shows them", () => {
   test("bytes in decimal units, three significant figures (common practice in networking: 1 KB = 1000 B)", () => {
@@ -45,5 +45,22 @@ describe("numbers as the console shows them", () => {
     expect(formatPercent(Number.NaN)).toBe("—");
     expect(formatUtc(Date.UTC(2024, 4, 1, 2, 5))).toBe("2024-05-01 02:05 UTC");
     expect(formatUtc("2024-05-01T02:05:00.000Z")).toBe("2024-05-01 02:05 UTC");
+  });
+});
+
+describe("intervals as the console shows them (issue 10: never 0 ± 0 while τ > 0)", () => {
+  test("no-match reads 0 – upper bound, the method's own words beside it", () => {
+    // 3 688.879 B = 1000·(−ln 0.025), Garwood's upper limit for a count of 0 (Biometrika 28, 1936).
+    expect(intervalText({ estimate: 0, ci95: [0, 3688.879], method: "no-match" }, "bytes")).toBe("0 – 3.69 KB");
+    expect(intervalText({ estimate: 0, ci95: [0, 3688.879], method: "no-match" }, "bytes")).not.toMatch(/±/);
+    expect(methodNote("no-match")).toBe("no sampled record matched");
+  });
+
+  test("a symmetric normal interval reads estimate ± half-width; a gamma one low – high, named", () => {
+    expect(intervalText({ estimate: 1000, ci95: [902, 1098], method: "normal" }, "bytes")).toBe("1.00 KB ± 98 B");
+    expect(intervalText({ estimate: 2000, ci95: [240, 7150], method: "gamma" }, "bytes")).toBe("240 B – 7.15 KB");
+    expect(methodNote("gamma")).toBe("gamma interval");
+    expect(methodNote("normal")).toBeNull();
+    expect(intervalText({ estimate: 42, ci95: [42, 42], method: "exact" }, "flows")).toBe("42 flows");
   });
 });

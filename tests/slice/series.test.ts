@@ -11,6 +11,9 @@ const group = (i: number, estimate: number): GroupJson => ({
   ci95: [estimate * 0.8, estimate * 1.2],
   kept: 20,
   rough: false,
+  method: "normal",
+  roughReason: null,
+  matched: true,
 });
 
 describe("the per-window series", () => {

@@ -3,10 +3,11 @@ import type { GroupByKind } from "~/query/request";
 import { Button, Panel } from "~/components/ui";
 import { protocolLabel } from "~/slice/chips";
 import { csvFileName, estimatesCsv } from "~/slice/csv";
-import { exactMetric, formatPercent, formatUtc, GROUP_LABELS } from "~/slice/format";
+import { exactMetric, formatPercent, formatUtc, GROUP_LABELS, methodNote } from "~/slice/format";
 import { describeQuery, type SliceState } from "~/slice/query-state";
 import { exactTotalOf, IntervalValue, MetricValue, ROUGH_EXPLANATION, RoughBadge, Stat } from "./figures";
 import { ResolutionNote } from "./Resolution";
+import { SelectionNote, SimultaneousCell } from "./Selection";
 
 const METRIC_TITLE = { bytes: "Bytes", packets: "Packets", flows: "Flows" } as const;
 
@@ -28,8 +29,10 @@ export function Headline({
   const total = exactTotalOf(answer);
   const share = total.value > 0 ? answer.estimate / total.value : Number.NaN;
   const relative = answer.estimate > 0 ? answer.stdError / answer.estimate : Number.NaN;
-  // The upper bound is estimate + z·SE; the lower one may be lifted to what is known for certain.
+  // A normal interval reads estimate ± half-width (its lower bound may be lifted to what is known
+  // for certain); gamma and no-match intervals are not symmetric and read low – high.
   const plusMinus = answer.ci95[1] - answer.estimate;
+  const note = methodNote(answer.method);
   return (
     <Panel
       title={
@@ -47,12 +50,22 @@ export function Headline({
       </p>
       <ResolutionNote resolution={answer.resolution} windowSeconds={windowSeconds} />
       <p className="mt-3 flex flex-wrap items-baseline gap-x-3 gap-y-1">
-        <MetricValue value={answer.estimate} metric={answer.metric} className="text-4xl font-semibold text-river-50" />
-        <span className="font-mono text-lg text-river-200" title={`95% interval half-width: ${exactMetric(plusMinus, answer.metric)}`}>
-          ± <MetricValue value={plusMinus} metric={answer.metric} />
-        </span>
-        <span className="text-sm text-river-300">(95%)</span>
-        {answer.rough ? <RoughBadge /> : null}
+        {answer.method === "no-match" ? (
+          <span className="text-4xl font-semibold text-river-50">
+            0 – <MetricValue value={answer.ci95[1]} metric={answer.metric} />
+          </span>
+        ) : (
+          <MetricValue value={answer.estimate} metric={answer.metric} className="text-4xl font-semibold text-river-50" />
+        )}
+        {answer.method === "normal" ? (
+          <span className="font-mono text-lg text-river-200" title={`95% interval half-width: ${exactMetric(plusMinus, answer.metric)}`}>
+            ± <MetricValue value={plusMinus} metric={answer.metric} />
+          </span>
+        ) : answer.method === "gamma" ? (
+          <IntervalValue low={answer.ci95[0]} high={answer.ci95[1]} metric={answer.metric} className="text-lg text-river-200" />
+        ) : null}
+        <span className="text-sm text-river-300">{note ? `(95%, ${note})` : "(95%)"}</span>
+        {answer.rough ? <RoughBadge reason={answer.roughReason} /> : null}
       </p>
       <dl className="mt-4 grid grid-cols-2 gap-x-6 gap-y-3 sm:grid-cols-3 xl:grid-cols-[auto_repeat(4,minmax(0,1fr))]">
         <Stat label="95% interval">
@@ -77,7 +90,13 @@ export function Headline({
       </dl>
       {answer.rough ? (
         <p className="mt-4 rounded-md border-l-4 border-sand-400 bg-sand-950/60 px-3 py-2 text-sm text-sand-100">
-          <strong className="font-semibold">Rough interval.</strong> {ROUGH_EXPLANATION}
+          <strong className="font-semibold">Rough interval{answer.roughReason ? `: ${answer.roughReason}` : ""}.</strong> {ROUGH_EXPLANATION}
+        </p>
+      ) : null}
+      {answer.method === "no-match" ? (
+        <p className="mt-4 text-sm text-river-300">
+          No sampled record matched. That is not proof of no traffic: records the sample left out weighed less than τ, and together they may
+          add up to the upper bound shown (95%).
         </p>
       ) : null}
       {answer.stdError === 0 && answer.kept > 0 ? (
@@ -117,6 +136,7 @@ export function GroupsTable({ answer, by, state }: { answer: EstimateAnswer; by:
                 <th scope="col" className="py-2 pr-3 font-medium">{GROUP_LABELS[by]}</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">Estimate</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">95% interval</th>
+                <th scope="col" className="py-2 pr-3 text-right font-medium text-river-400">Joint 95%</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">Std error</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">Rel. error</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">Kept</th>
@@ -131,6 +151,7 @@ export function GroupsTable({ answer, by, state }: { answer: EstimateAnswer; by:
           </table>
         </div>
       )}
+      <SelectionNote answer={answer} />
       {anyRough ? <p className="mt-3 text-xs text-river-300">rough: {ROUGH_EXPLANATION}</p> : null}
     </Panel>
   );
@@ -141,14 +162,16 @@ function GroupRow({ g, by, metric, exactTotal }: { g: GroupJson; by: GroupByKind
     <tr className="border-b border-river-800/70 align-baseline last:border-0 hover:bg-river-900">
       <th scope="row" className="py-1.5 pr-3 text-left font-mono font-normal text-river-50">
         <span className="mr-2">{groupLabel(by, g.key)}</span>
-        {g.rough ? <RoughBadge /> : null}
+        {g.rough ? <RoughBadge reason={g.roughReason} /> : null}
       </th>
       <td className="py-1.5 pr-3 text-right">
         <MetricValue value={g.estimate} metric={metric} />
       </td>
       <td className="py-1.5 pr-3 text-right text-river-200">
         <IntervalValue low={g.ci95[0]} high={g.ci95[1]} metric={metric} />
+        {methodNote(g.method) ? <span className="ml-1 text-xs text-river-300">({methodNote(g.method)})</span> : null}
       </td>
+      <SimultaneousCell g={g} metric={metric} />
       <td className="py-1.5 pr-3 text-right text-river-200">
         <MetricValue value={g.stdError} metric={metric} />
       </td>

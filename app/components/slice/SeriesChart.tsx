@@ -127,7 +127,7 @@ export function SeriesSummary({ series, metric }: { series: Series; metric: Metr
           <span className="font-mono text-river-50">{formatMetric(mean, metric)}</span> per window
         </dd>
       </dl>
-      {rough > 0 ? <p className="text-xs text-river-300">{rough} window{rough === 1 ? " has a rough interval" : "s have rough intervals"} (fewer than 10 uncertain sampled records).</p> : null}
+      {rough > 0 ? <p className="text-xs text-river-300">{rough} window{rough === 1 ? " has a rough interval" : "s have rough intervals"}: the normal approximation would be poor there (few uncertain sampled records, or one dominating), so a gamma bound answers.</p> : null}
       {series.truncated ? (
         <p className="text-xs text-sand-200">One answer lists at most 1000 windows: the largest are shown, the rest are gaps. Narrow the range to see every window.</p>
       ) : null}

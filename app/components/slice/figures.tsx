@@ -30,12 +30,12 @@ export function exactTotalOf(answer: EstimateAnswer): { value: number; raw: Coun
 }
 
 export const ROUGH_EXPLANATION =
-  "Fewer than 10 uncertain sampled records contribute, so the normal approximation behind the 95% interval is weak: read it as a rough guide. A wider time range or filter gives a firmer interval.";
+  "The normal approximation would be poor here (fewer than 20 uncertain sampled records, or one record carrying over 5% of the variance, or none matched), so the 95% interval comes from a gamma bound that allows for records the sample left out: it covers, but is wide. A wider time range or filter gives a firmer interval.";
 
-export function RoughBadge() {
+export function RoughBadge({ reason }: { reason?: string | null }) {
   return (
     <span
-      title={ROUGH_EXPLANATION}
+      title={reason ? `${reason}. ${ROUGH_EXPLANATION}` : ROUGH_EXPLANATION}
       className="inline-flex items-center rounded border border-sand-400/70 px-1.5 py-px text-[11px] font-semibold tracking-wide text-sand-200 uppercase"
     >
       rough
