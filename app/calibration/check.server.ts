@@ -1,6 +1,8 @@
 import type { InStatement } from "@libsql/client";
 import type { Db } from "~/db/client.server";
+import type { WeightAttribute } from "~/db/schema.server";
 import { KEPT_ROW_BYTES, ROW_BYTES_AT, ROW_PACKETS_AT } from "~/ingest/kept-codec";
+import { unseenPerWeight } from "~/query/answer";
 import { addRecord, EMPTY_SUM, type EstimateSum } from "~/sampling/estimate";
 import { toInterval, type Interval } from "~/sampling/interval";
 
@@ -29,21 +31,10 @@ const MAX_DELETED_PER_RUN = 10_000;
 
 const DAY_MS = 86_400_000;
 
-/**
- * The most a metric can be per unit of the sampling weight, for the interval's unseen term:
- * under a byte weight every packet holds at least one byte and every flow at least one packet,
- * so packets and flows per byte are at most 1; under a packet weight bytes per packet are at
- * most 65 535 (the IPv4 Total Length and IPv6 Payload Length fields are 16 bits, RFC 791 §3.1,
- * RFC 8200 §3; jumbograms, RFC 2675, are left out).
- */
-function perWeight(weightAttribute: string, metric: CalibrationMetric): number {
-  return weightAttribute === "packets" && metric === "bytes" ? 65_535 : 1;
-}
-
 /** One window of one collector: its node reservoirs together. */
 export interface WindowToCheck {
   tenantId: number;
-  weightAttribute: string;
+  weightAttribute: WeightAttribute;
   collectorId: number;
   windowStart: number;
   windowSeconds: number;
@@ -65,7 +56,7 @@ export interface WindowCheckResult {
  * The estimate and interval of one window's total for each metric, against its exact total.
  *
  * The interval is asked with `unseenTerm` = the window's largest τ (times the metric's most per
- * unit of weight) and deliberately *no* `cap`: the exact total is what is being tested, and an
+ * unit of weight, as the estimate answers use it: app/query/answer.ts unseenPerWeight) and deliberately *no* `cap`: the exact total is what is being tested, and an
  * interval capped at it would cover it whenever the estimate's lower end is below it, which
  * would make the check say little about the intervals queries get (they know no such cap for
  * a subset).
@@ -90,7 +81,7 @@ export function checkWindow(window: WindowToCheck): WindowCheckResult[] {
   }
   const exact: Record<CalibrationMetric, bigint> = { bytes: window.bytes, packets: window.packets, flows: window.records };
   return CALIBRATION_METRICS.map((metric) => {
-    const interval = toInterval(sums[metric], { unseenTerm: maxTau * perWeight(window.weightAttribute, metric) });
+    const interval = toInterval(sums[metric], { unseenTerm: maxTau * unseenPerWeight(window.weightAttribute, metric) });
     // Totals below 2^53 (9 PB in a window) compare exactly as doubles; larger ones lose only
     // rounding, far inside any interval with τ > 0.
     const truth = Number(exact[metric]);
@@ -203,7 +194,7 @@ async function closedUncheckedWindows(db: Db, now: number, limit: number): Promi
     const windowStart = Number(row[3]);
     const windowSeconds = Number(row[4]);
     if (!last || last.tenantId !== tenantId || last.collectorId !== collectorId || last.windowStart !== windowStart || last.windowSeconds !== windowSeconds) {
-      last = { tenantId, weightAttribute: String(row[1]), collectorId, windowStart, windowSeconds, reservoirs: [], records: 0n, bytes: 0n, packets: 0n };
+      last = { tenantId, weightAttribute: String(row[1]) as WeightAttribute, collectorId, windowStart, windowSeconds, reservoirs: [], records: 0n, bytes: 0n, packets: 0n };
       out.push(last);
     }
     last.reservoirs.push({ tau: Number(row[6]), rows: row[10] === null ? new Uint8Array(0) : new Uint8Array(row[10] as ArrayBuffer) });
