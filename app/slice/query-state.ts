@@ -10,7 +10,7 @@
  *
  * Pure module: no I/O, usable in the browser and on the server.
  */
-import { DEFAULT_PREFIX_LENGTH, DEFAULT_TOP, GROUP_BY, MAX_TOP, METRICS, type GroupByKind, type Metric } from "../query/request.ts";
+import { DEFAULT_PREFIX_LENGTH, DEFAULT_TOP, GROUP_BY, MAX_TOP, METRICS, RANK_MODES, type GroupByKind, type Metric, type RankMode } from "../query/request.ts";
 import { checkProtocolChip } from "./chips.ts";
 
 export const RANGE_PRESETS = {
@@ -42,6 +42,8 @@ export interface SliceState {
   /** Group prefix lengths per family; sent only with groupBy src or dst. */
   prefixLength: { ipv4: number; ipv6: number };
   top: number;
+  /** How the top groups are chosen (selection.ts); sent only with a group-by. */
+  rank: RankMode;
 }
 
 export function defaultSliceState(): SliceState {
@@ -52,6 +54,7 @@ export function defaultSliceState(): SliceState {
     groupBy: null,
     prefixLength: { ...DEFAULT_PREFIX_LENGTH },
     top: DEFAULT_TOP,
+    rank: "estimate",
   };
 }
 
@@ -110,7 +113,7 @@ function parsePrefixLength(text: string): { ipv4: number; ipv6: number } | null 
   return out;
 }
 
-const KNOWN = new Set<string>(["range", "from", "to", "metric", "groupBy", "prefixLength", "top", ...LIST_FIELDS]);
+const KNOWN = new Set<string>(["range", "from", "to", "metric", "groupBy", "prefixLength", "top", "rank", ...LIST_FIELDS]);
 
 /**
  * The Slice question in a page URL's search params.
@@ -181,6 +184,11 @@ export function parseSliceParams(params: URLSearchParams): ParsedSlice {
     if (n !== null) state.top = n;
     else problems.push(`top=${top} is not a whole number from 1 to ${MAX_TOP}; using ${DEFAULT_TOP}.`);
   }
+  const rank = one("rank");
+  if (rank !== null) {
+    if ((RANK_MODES as readonly string[]).includes(rank)) state.rank = rank as RankMode;
+    else problems.push(`rank=${rank} is not one of ${RANK_MODES.join(", ")}; ranking on the estimates.`);
+  }
   return { state, problems };
 }
 
@@ -211,6 +219,7 @@ export function sliceParams(state: SliceState): URLSearchParams {
     out.set("prefixLength", prefixLengthText(state.prefixLength));
   }
   if (state.top !== DEFAULT_TOP) out.set("top", String(state.top));
+  if (state.rank !== "estimate") out.set("rank", state.rank);
   return out;
 }
 
@@ -268,6 +277,8 @@ export function estimateSearch(
   if (groupBy !== null) out.set("groupBy", groupBy);
   if (groupBy === "src" || groupBy === "dst") out.set("prefixLength", prefixLengthText(state.prefixLength));
   out.set("top", String(override.top ?? state.top));
+  // The split ranking is for the page's own groups, not for an override such as the time series.
+  if (groupBy !== null && override.groupBy === undefined && state.rank !== "estimate") out.set("rank", state.rank);
   return out;
 }
 
@@ -287,5 +298,6 @@ export function describeQuery(state: SliceState, from: number, to: number, metri
   if (state.groupBy !== null) parts.push(`groupBy=${state.groupBy}`);
   if (state.groupBy === "src" || state.groupBy === "dst") parts.push(`prefixLength=ipv4:${state.prefixLength.ipv4} ipv6:${state.prefixLength.ipv6}`);
   parts.push(`top=${state.top}`);
+  if (state.groupBy !== null && state.rank !== "estimate") parts.push(`rank=${state.rank}`);
   return parts.join("; ");
 }

@@ -61,6 +61,7 @@ const state: fc.Arbitrary<SliceState> = fc.record({
   groupBy: fc.constantFrom(null, ...GROUP_BY),
   prefixLength: fc.record({ ipv4: fc.integer({ min: 0, max: 32 }), ipv6: fc.integer({ min: 0, max: 128 }) }),
   top: fc.integer({ min: 1, max: MAX_TOP }),
+  rank: fc.constantFrom("estimate" as const, "split" as const),
 });
 
 // ---- properties -------------------------------------------------------------------------------

@@ -7,6 +7,7 @@ import { exactMetric, formatPercent, formatUtc, GROUP_LABELS, methodNote } from 
 import { describeQuery, type SliceState } from "~/slice/query-state";
 import { exactTotalOf, IntervalValue, MetricValue, ROUGH_EXPLANATION, RoughBadge, Stat } from "./figures";
 import { ResolutionNote } from "./Resolution";
+import { SelectionNote, SimultaneousCell } from "./Selection";
 
 const METRIC_TITLE = { bytes: "Bytes", packets: "Packets", flows: "Flows" } as const;
 
@@ -135,6 +136,7 @@ export function GroupsTable({ answer, by, state }: { answer: EstimateAnswer; by:
                 <th scope="col" className="py-2 pr-3 font-medium">{GROUP_LABELS[by]}</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">Estimate</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">95% interval</th>
+                <th scope="col" className="py-2 pr-3 text-right font-medium text-river-400">Joint 95%</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">Std error</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">Rel. error</th>
                 <th scope="col" className="py-2 pr-3 text-right font-medium">Kept</th>
@@ -149,6 +151,7 @@ export function GroupsTable({ answer, by, state }: { answer: EstimateAnswer; by:
           </table>
         </div>
       )}
+      <SelectionNote answer={answer} />
       {anyRough ? <p className="mt-3 text-xs text-river-300">rough: {ROUGH_EXPLANATION}</p> : null}
     </Panel>
   );
@@ -168,6 +171,7 @@ function GroupRow({ g, by, metric, exactTotal }: { g: GroupJson; by: GroupByKind
         <IntervalValue low={g.ci95[0]} high={g.ci95[1]} metric={metric} />
         {methodNote(g.method) ? <span className="ml-1 text-xs text-river-300">({methodNote(g.method)})</span> : null}
       </td>
+      <SimultaneousCell g={g} metric={metric} />
       <td className="py-1.5 pr-3 text-right text-river-200">
         <MetricValue value={g.stdError} metric={metric} />
       </td>

@@ -5,6 +5,7 @@ import { checkPortChip, checkPrefixChip, checkProtocolChip, COMMON_PROTOCOLS, pr
 import { RANGE_PRESETS, resolveRange, type RangePreset, type SliceRange, type SliceState } from "~/slice/query-state";
 import { GROUP_LABELS } from "~/slice/format";
 import { ChipInput } from "./ChipInput";
+import { SplitRankField } from "./Selection";
 
 
 const METRIC_LABELS: Record<Metric, string> = { bytes: "Bytes", packets: "Packets", flows: "Flows (records)" };
@@ -118,6 +119,7 @@ export function SliceForm({ state, onChange, collectors, weightAttribute }: Slic
         {state.groupBy !== null ? (
           <NumberField label="Top N groups" value={state.top} min={1} max={MAX_TOP} onCommit={(n) => set("top", n)} hint={`The largest groups by estimate; default ${DEFAULT_TOP}.`} />
         ) : null}
+        {state.groupBy !== null ? <SplitRankField checked={state.rank === "split"} onChange={(split) => set("rank", split ? "split" : "estimate")} /> : null}
       </Section>
     </form>
   );
