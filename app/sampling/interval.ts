@@ -128,36 +128,37 @@ export function gammaInterval(y: number, v: number, wM: number): [low: number, h
  */
 
 export function toInterval(sum: EstimateSum, context: IntervalContext = { unseenTerm: 0 }): Interval {
-  const stdError = Math.sqrt(Math.max(0, sum.variance));
   const unseen = Math.max(0, context.unseenTerm);
   const cap = context.cap ?? Infinity;
   const certain = sum.certain;
-  const bounded = (low: number, high: number): [number, number] => {
-    let lo = Math.max(low, certain, 0);
-    // A lower bound above the range's exact total contradicts it: keep only what is certain.
-    if (lo > cap) lo = Math.min(Math.max(certain, 0), cap);
-    return [lo, Math.max(lo, Math.min(high, cap))];
-  };
-  const base = { estimate: sum.estimate, stdError, kept: sum.kept, matched: sum.kept > 0 };
-
-  if (sum.uncertain === 0 && unseen === 0) {
-    return { ...base, ci95: [sum.estimate, sum.estimate], rough: false, roughReason: null, method: "exact" };
-  }
-  if (sum.kept === 0) {
-    return {
-      ...base,
-      ci95: bounded(0, ZERO_COUNT_UPPER * unseen),
-      rough: true,
-      roughReason: "no sampled record matched",
-      method: "no-match",
-    };
-  }
+  if (sum.uncertain === 0 && unseen === 0) return result(sum, [sum.estimate, sum.estimate], null, "exact");
+  if (sum.kept === 0) return result(sum, bounded(0, ZERO_COUNT_UPPER * unseen, certain, cap), "no sampled record matched", "no-match");
   const reason = roughReason(sum);
   if (reason === null) {
-    const half = Z95 * stdError;
-    return { ...base, ci95: bounded(sum.estimate - half, sum.estimate + half), rough: false, roughReason: null, method: "normal" };
+    const half = Z95 * Math.sqrt(Math.max(0, sum.variance));
+    return result(sum, bounded(sum.estimate - half, sum.estimate + half, certain, cap), null, "normal");
   }
   const y = Math.max(0, sum.estimate - certain);
   const [low, high] = gammaInterval(y, Math.max(0, sum.variance), Math.max(sum.maxTerm, unseen));
-  return { ...base, ci95: bounded(certain + low, certain + high), rough: true, roughReason: reason, method: "gamma" };
+  return result(sum, bounded(certain + low, certain + high, certain, cap), reason, "gamma");
+}
+
+/** Lower bound at least the certain part and 0, upper at most the cap (a lower bound above the cap contradicts it: keep only what is certain). */
+function bounded(low: number, high: number, certain: number, cap: number): [number, number] {
+  let lo = Math.max(low, certain, 0);
+  if (lo > cap) lo = Math.min(Math.max(certain, 0), cap);
+  return [lo, Math.max(lo, Math.min(high, cap))];
+}
+
+function result(sum: EstimateSum, ci95: [number, number], reason: string | null, method: IntervalMethod): Interval {
+  return {
+    estimate: sum.estimate,
+    stdError: Math.sqrt(Math.max(0, sum.variance)),
+    ci95,
+    rough: method === "no-match" || reason !== null,
+    roughReason: reason,
+    method,
+    kept: sum.kept,
+    matched: sum.kept > 0,
+  };
 }
