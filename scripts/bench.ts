@@ -69,6 +69,9 @@ section("Roll-up of that day into hourly windows (retention after N days), and t
 const u = q.rollUp;
 console.log(`roll-up                ${q.windows} windows → ${u.hourlyWindows} hourly, ${fmt(q.keptRecords, 0)} → ${fmt(u.keptAfter, 0)} kept records, in ${fmt(u.rollUpSeconds, 2)} s`);
 console.log(`read the day only      ${fmt(u.readSeconds, 2)} s   (decode every reservoir: the floor) → roll-up / read ${fmt(u.rollUpSeconds / u.readSeconds, 2)}×`);
+console.log(
+  `interval widening     ${fmt(u.widening, 2)}× at hourly K = ${u.hourlySampleSize} (standard error after / before the roll-up, geometric mean over ${u.stdErrorRatios.length} questions: ${u.stdErrorRatios.map((r) => fmt(r, 2)).join(", ")})`,
+);
 console.log(`exact bytes            before ${u.exactBytesBefore}, after ${u.exactBytesAfter}   (${u.exactBytesBefore === u.exactBytesAfter ? "equal" : "DIFFERENT"})`);
 console.log(`p50 over 50            ${fmt(u.p50Ms, 1)} ms after the roll-up, against ${fmt(q.p50Ms, 1)} ms before`);
 console.log(`checked answer         |estimate − exact| = ${fmt(u.zOfCheckedQuery, 2)} standard errors after the roll-up`);

@@ -8,6 +8,7 @@ import { toInterval, type IntervalContext, type IntervalMethod } from "../sampli
 import type { Metric } from "./request.ts";
 import type { ScanResult } from "./scan.ts";
 import { simultaneousInterval, type SelectionJson } from "./selection.ts";
+import type { RollUpDisclosure } from "./rollup-disclosure.ts";
 
 /** An estimate with its error: standard error, 95% interval, kept records behind it, rough flag. */
 export interface IntervalJson {
@@ -55,6 +56,8 @@ export interface ResolutionJson {
   from: string;
   /** End of the last of them (ISO 8601). */
   to: string;
+  /** Hourly windows rolled up from fine ones: how much wider intervals get there (rollup-disclosure.ts). */
+  rollUp?: RollUpDisclosure;
 }
 
 export interface EstimateAnswer extends IntervalJson {

@@ -7,6 +7,7 @@ import type { KeptColumns } from "./columns";
 import { keptRowsToColumns } from "~/ingest/kept-codec";
 import type { EstimateQuery } from "./request";
 import { compileQuery, type ScanReservoir } from "./scan";
+import { discloseRollUps } from "./rollup-disclosure";
 import { rankGroups } from "./selection";
 import { SnapshotCache } from "./snapshot-cache";
 
@@ -20,6 +21,9 @@ export interface EstimateContext {
 export interface EstimateTenant {
   id: number;
   weightAttribute: "bytes" | "packets";
+  /** The fine windows' k and length, for the roll-up disclosure in `resolution`; optional. */
+  sampleSize?: number;
+  windowSeconds?: number;
 }
 
 /**
@@ -97,7 +101,7 @@ export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, 
     exact.bytes += r.bytes;
     exact.packets += r.packets;
   }
-  return buildAnswer({
+  const answer = buildAnswer({
     metric,
     result,
     windows: windows.size,
@@ -112,6 +116,8 @@ export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, 
       cap: Number(metric === "bytes" ? exact.bytes : metric === "packets" ? exact.packets : exact.records),
     },
   });
+  discloseRollUps(answer.resolution, rows, tenant);
+  return answer;
 }
 
 /**

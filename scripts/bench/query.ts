@@ -43,12 +43,21 @@ export interface RollUpBench {
   exactBytesAfter: string;
   p50Ms: number;
   zOfCheckedQuery: number;
+  /** The hourly sample size K the roll-up used (the tenant's k unless set). */
+  hourlySampleSize: number;
+  /**
+   * Standard error after / before the roll-up for the same questions (each source block of
+   * BLOCKS, then the whole day): how much wider every interval gets. `widening` is their
+   * geometric mean.
+   */
+  stdErrorRatios: number[];
+  widening: number;
 }
 
 const BATCH = 50_000;
 const BLOCKS = ["192.0.2.0/24", "198.51.100.0/24", "203.0.113.0/24", "192.0.2.0/25", "198.51.100.128/25"];
 
-export async function benchQuery(total = 10_000_000, queries = 50, exactRuns = 5): Promise<QueryBench> {
+export async function benchQuery(total = 10_000_000, queries = 50, exactRuns = 5, hourlySampleSize?: number): Promise<QueryBench> {
   const dir = mkdtempSync(join(tmpdir(), "weir-bench-query-"));
   try {
     const weirPath = join(dir, "weir.db");
@@ -98,6 +107,10 @@ export async function benchQuery(total = 10_000_000, queries = 50, exactRuns = 5
 
     // Roll the day up into hourly windows, as retention does after N = 30 days, and ask again.
     const rolled = await createDb(`file:${weirPath}`);
+    if (hourlySampleSize !== undefined) {
+      await rolled.$client.execute({ sql: "UPDATE tenants SET hourly_sample_size = ? WHERE id = ?", args: [hourlySampleSize, tenant.id] });
+    }
+    const usedK = Number((await rolled.$client.execute({ sql: "SELECT coalesce(hourly_sample_size, sample_size) FROM tenants WHERE id = ?", args: [tenant.id] })).rows[0][0]);
     let t0 = performance.now();
     await readStoredWindows(rolled.$client, tenant.id, { from: dayStart, to: dayStart + 86_400_000 });
     const readSeconds = (performance.now() - t0) / 1000;
@@ -131,6 +144,9 @@ export async function benchQuery(total = 10_000_000, queries = 50, exactRuns = 5
         exactBytesAfter: String(after.checked.exact.bytes),
         p50Ms: percentile(after.latencies, 0.5),
         zOfCheckedQuery: Math.abs(after.checked.estimate - exactTotal) / after.checked.stdError,
+        hourlySampleSize: usedK,
+        stdErrorRatios: after.stdErrors.map((se, i) => se / before.stdErrors[i]),
+        widening: Math.exp(after.stdErrors.reduce((s, se, i) => s + Math.log(se / before.stdErrors[i]), 0) / after.stdErrors.length),
       },
     };
   } finally {
@@ -151,11 +167,11 @@ interface EstimateReply {
 async function querySession(databaseUrl: string, key: string, dayStart: number, queries: number) {
   const server = await startChildServer(databaseUrl);
   try {
-    const ask = async (block: string): Promise<EstimateReply> => {
+    const ask = async (block: string | null): Promise<EstimateReply> => {
       const res = await fetch(`${server.url}/api/v1/estimate`, {
         method: "POST",
         headers: { authorization: `Bearer ${key}`, "content-type": "application/json" },
-        body: JSON.stringify({ from: dayStart, to: dayStart + 86_400_000, where: { src: [block] }, groupBy: "dst", prefixLength: 24, top: 10 }),
+        body: JSON.stringify({ from: dayStart, to: dayStart + 86_400_000, where: block === null ? {} : { src: [block] }, groupBy: "dst", prefixLength: 24, top: 10 }),
       });
       if (res.status !== 200) throw new Error(`estimate answered ${res.status}: ${await res.text()}`);
       return (await res.json()) as EstimateReply;
@@ -170,7 +186,10 @@ async function querySession(databaseUrl: string, key: string, dayStart: number, 
       latencies.push(performance.now() - t0);
     }
     const checked = await ask(BLOCKS[1]);
-    return { firstQueryMs, latencies: latencies.sort((a, b) => a - b), checked };
+    // The same questions before and after a roll-up, for the widening figure: each block, then the whole day.
+    const stdErrors: number[] = [];
+    for (const block of [...BLOCKS, null]) stdErrors.push((await ask(block)).stdError);
+    return { firstQueryMs, latencies: latencies.sort((a, b) => a - b), checked, stdErrors };
   } finally {
     await server.stop();
   }

@@ -47,7 +47,11 @@ export function ResolutionNote({ resolution, windowSeconds }: { resolution: read
   return (
     <p className="mt-2 text-sm text-river-300">
       {text}
-      {rolledUp ? " Roll-ups give the same unbiased estimates at a coarser time resolution; intervals for small subsets are wider." : null}
+      {rolledUp
+        ? ` Roll-ups give the same unbiased estimates at a coarser time resolution. ${
+            resolution!.find((r) => r.rollUp)?.rollUp?.note ?? "Every interval over hourly roll-ups is wider, not only small subsets'."
+          }`
+        : null}
     </p>
   );
 }
