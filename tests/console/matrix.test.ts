@@ -24,6 +24,7 @@ const PAGES: [path: string, least: Role][] = [
   ["/t/matrix/intake-data", "viewer"],
   ["/t/matrix/exporters", "viewer"],
   ["/t/matrix/exporters-data", "viewer"],
+  ["/t/matrix/calibration", "viewer"],
   ["/t/matrix/merge", "engineer"],
   ["/t/matrix/keys", "admin"],
   ["/t/matrix/people", "admin"],

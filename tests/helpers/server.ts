@@ -23,6 +23,8 @@ export async function startTestServer(
     env: parseEnv({ NODE_ENV: "development", HOST: "127.0.0.1", PORT: "0", DATABASE_URL: `file:${join(dir, "weir.db")}`, LOG_LEVEL: "silent",
       // Off: a roll-up against the clock would delete the past-dated data tests post. Retention tests run it explicitly.
       RETENTION_INTERVAL_MINUTES: "0",
+      // Off too: calibration tests run the checks explicitly.
+      CALIBRATION_INTERVAL_MINUTES: "0",
       ...options.env }),
     uniform: options.uniform,
     // Listeners off unless a test asks for them (on free ports): fixed ports would collide between test files.
