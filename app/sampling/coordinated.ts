@@ -158,7 +158,8 @@ export function mergeCoordinated<T>(
       k,
       tau,
       seen: inputs.reduce((n, r) => n + r.seen, 0) - dropped.length,
-      kept: union.slice(0, k),
+      // As in merge.ts: a no-op unless an input (an hourly roll-up above the fine k) holds fewer than k_j records while τ_j > 0.
+      kept: union.slice(0, k).filter((r) => r.priority > tau),
     },
     duplicatesDropped: dropped.length,
     dropped,

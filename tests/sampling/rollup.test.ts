@@ -120,4 +120,26 @@ describe("rollUpStates", () => {
     expect(maxHourlySampleSize(1024, 60)).toBe(60 * 1024);
     expect(maxHourlySampleSize(1024, 3600)).toBe(1024);
   });
+
+  it("stays a valid input of a later merge: nothing at or below the merged τ is kept, and the merge stays unbiased", () => {
+    // An hourly window at K = Σ k_j holds fewer than K records with τ > 0 (records between the
+    // windows' τ_j are dropped); merged (DLT 2007) with windows of k = K, the merge's common τ
+    // must then drop the other inputs' records at or below it.
+    const K = WINDOWS * K_FINE;
+    const other = populations.slice(6).map((p) => p.map((r) => ({ ...r, id: r.id + 1_000_000 })));
+    const otherTruth = other.flat().reduce((s, r) => (inSubset(r) ? s + r.bytes : s), 0);
+    const uniform = seededUniform(8_000_000);
+    const r = monteCarlo((inputs) => {
+      const hourly = rollUpStates(inputs, K);
+      const fine = other.map((p) => {
+        const reservoir = new Reservoir<TestRecord>(K, { uniform });
+        for (const x of p.concat(p, p)) reservoir.offer(x, x.bytes);
+        return reservoir.state();
+      });
+      const merged = mergeStates([hourly, ...fine], K);
+      expect(merged.kept.every((x) => x.priority > merged.tau)).toBe(true);
+      return { value: subsetEstimate(merged), kept: merged.kept.length };
+    });
+    expect(Math.abs(r.mean - (truth + 3 * otherTruth))).toBeLessThan(4 * r.se);
+  });
 });
