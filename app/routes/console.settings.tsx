@@ -165,7 +165,7 @@ export default function Settings({ loaderData, actionData }: Route.ComponentProp
               explain={
                 <>
                   Fine windows (shorter than an hour) become hourly ones after N days (the first field): the same unbiased estimates, at a coarser time
-                  resolution and with wider intervals for small subsets. Every window is deleted M days (the second field, at least N) after it ended. With M = N
+                  resolution and with wider intervals for every subset (how much wider: the hourly sample size and the trade-off below). Every window is deleted M days (the second field, at least N) after it ended. With M = N
                   fine windows are deleted at N days, without a roll-up. Both 1–3650 days.
                 </>
               }
