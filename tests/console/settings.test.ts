@@ -200,7 +200,7 @@ describe("console Settings", () => {
       expect(html).toContain("Fine windows kept (days)");
       expect(html).toContain("Hourly windows kept until (days old)");
       expect(html).toContain("Fine windows (shorter than an hour) become hourly ones after N days (the first field): the same unbiased estimates");
-      expect(html).toContain("with wider intervals for small subsets");
+      expect(html).toContain("with wider intervals for every subset");
       expect(html).toContain("Every window is deleted M days (the second field, at least N) after it ended");
       expect(html).toContain("can be personal data");
       expect(checkbox(html)).toMatch(/type="checkbox"/);
