@@ -265,7 +265,8 @@ describe("roll-up retention", () => {
 
     it("lists the hourly windows as the answer's resolution", async () => {
       const answer = await setup.estimate({});
-      expect(answer.resolution).toEqual([{ windowSeconds: 3600, windows: HOURS, from: RANGE.from, to: RANGE.to }]);
+      // Hourly windows rolled up from fine ones carry the widening disclosure (tests/retention/disclosure.test.ts).
+      expect(answer.resolution).toEqual([{ windowSeconds: 3600, windows: HOURS, from: RANGE.from, to: RANGE.to, rollUp: expect.objectContaining({ boundRatio: expect.any(Number) }) }]);
       expect(answer.windows).toBe(HOURS);
     });
 
@@ -316,7 +317,7 @@ describe("roll-up retention", () => {
     expect(report.rolledUp).toMatchObject({ hours: 2, fineWindows: 24, hourlyWindows: 2 });
     const answer = await setup.estimate({ groupBy: "window", top: 1000 });
     expect(answer.resolution).toEqual([
-      { windowSeconds: 3600, windows: 2, from: new Date(T0).toISOString(), to: new Date(T0 + 2 * HOUR_MS).toISOString() },
+      { windowSeconds: 3600, windows: 2, from: new Date(T0).toISOString(), to: new Date(T0 + 2 * HOUR_MS).toISOString(), rollUp: expect.any(Object) },
       { windowSeconds: 300, windows: 24, from: new Date(T0 + 2 * HOUR_MS).toISOString(), to: RANGE.to },
     ]);
     expect(answer.windows).toBe(26);
