@@ -30,7 +30,8 @@ export async function sampleSizeAdvice(
 ): Promise<SampleSizeAdvice> {
   const streams = await db.$client.execute({ sql: "SELECT id FROM collectors WHERE tenant_id = ? AND kind = 'stream'", args: [tenant.id] });
   const stored = await readStoredWindows(db.$client, tenant.id, {
-    from: now - DAY_MS,
+    // At most the last MAX_WINDOWS windows' worth of time, so a page load never decodes a whole day.
+    from: now - Math.min(DAY_MS, MAX_WINDOWS * tenant.windowSeconds * 1000),
     to: now,
     shorterThan: 3600,
     collectorIds: streams.rows.map((r) => Number(r[0])),
