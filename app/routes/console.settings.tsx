@@ -392,7 +392,7 @@ function SampleSizeAdvisor({
   return (
     <div className="flex flex-col gap-4 text-sm text-river-200">
       <p className="max-w-3xl">
-        {`From ${advice.windows} fine windows of the last 24 hours (stream collectors). For a subset holding a share of the ${settings.weightAttribute}, the 95% interval's half-width as a share of its true value, over the same windows: `}
+        {`From the ${advice.windows} most recent fine windows (at most 96, within the last 24 hours; stream collectors). For a subset holding a share of the ${settings.weightAttribute}, the 95% interval's half-width as a share of its true value, over the same windows: `}
         <strong>bound</strong> — at most 1.96 / (share × √(k − 1)) for one window, from the variance bound W²/(k − 1) of a priority sample&apos;s total
         (Szegedy, STOC 2006), which holds for any subset because the per-record estimates are uncorrelated; <strong>empirical</strong> — from the kept
         records&apos; v̂ = τ·max(0, τ − w) (Duffield, Lund, Thorup, J. ACM 2007) for a random subset of that share: smaller k is read off the stored samples exactly,

@@ -322,7 +322,7 @@ describe("console Settings", () => {
     expect((await post(key, flowsAt(now - 3 * HOUR_MS, 200))).status).toBe(200);
     const html = await (await ada.fetch(path)).text();
     expect(html).toContain("Sample-size advisor");
-    expect(html).toContain("From 1 fine windows of the last 24 hours");
+    expect(html).toContain("From the 1 most recent fine windows (at most 96, within the last 24 hours");
     expect(html).toMatch(/64 \(current\)/);
   });
 });
