@@ -2,7 +2,7 @@ import type { InStatement } from "@libsql/client";
 import type { Db } from "~/db/client.server";
 import type { WeightAttribute } from "~/db/schema.server";
 import { KEPT_ROW_BYTES, ROW_BYTES_AT, ROW_PACKETS_AT } from "~/ingest/kept-codec";
-import { unseenPerWeight } from "~/query/answer";
+import { unseenRatio } from "~/query/answer";
 import { addRecord, EMPTY_SUM, type EstimateSum } from "~/sampling/estimate";
 import { toInterval, type Interval } from "~/sampling/interval";
 
@@ -55,8 +55,8 @@ export interface WindowCheckResult {
 /**
  * The estimate and interval of one window's total for each metric, against its exact total.
  *
- * The interval is asked with `unseenTerm` = the window's largest τ (times the metric's most per
- * unit of weight, as the estimate answers use it: app/query/answer.ts unseenPerWeight) and deliberately *no* `cap`: the exact total is what is being tested, and an
+ * The interval is asked with `unseenTerm` = the window's largest τ times the metric's ratio to
+ * the weight, as the estimate answers use it (app/query/answer.ts unseenRatio), and deliberately *no* `cap`: the exact total is what is being tested, and an
  * interval capped at it would cover it whenever the estimate's lower end is below it, which
  * would make the check say little about the intervals queries get (they know no such cap for
  * a subset).
@@ -68,20 +68,29 @@ export interface WindowCheckResult {
  */
 export function checkWindow(window: WindowToCheck): WindowCheckResult[] {
   const sums: Record<CalibrationMetric, EstimateSum> = { bytes: { ...EMPTY_SUM }, packets: { ...EMPTY_SUM }, flows: { ...EMPTY_SUM } };
-  let maxTau = 0;
+  // Per metric, the largest τ times that reservoir's unseen ratio (app/query/answer.ts unseenRatio), as queries do.
+  const unseen: Record<CalibrationMetric, number> = { bytes: 0, packets: 0, flows: 0 };
   for (const { tau, rows } of window.reservoirs) {
-    if (tau > maxTau) maxTau = tau;
     const view = new DataView(rows.buffer, rows.byteOffset, rows.byteLength);
+    const largest: Record<CalibrationMetric, number | null> = { bytes: null, packets: null, flows: null };
     for (let o = 0; o + KEPT_ROW_BYTES <= rows.byteLength; o += KEPT_ROW_BYTES) {
       const weight = view.getFloat64(o + 8, true);
-      addRecord(sums.bytes, tau, weight, Number(view.getBigUint64(o + ROW_BYTES_AT, true)));
-      addRecord(sums.packets, tau, weight, Number(view.getBigUint64(o + ROW_PACKETS_AT, true)));
+      const bytes = Number(view.getBigUint64(o + ROW_BYTES_AT, true));
+      const packets = Number(view.getBigUint64(o + ROW_PACKETS_AT, true));
+      addRecord(sums.bytes, tau, weight, bytes);
+      addRecord(sums.packets, tau, weight, packets);
       addRecord(sums.flows, tau, weight, 1);
+      largest.bytes = Math.max(largest.bytes ?? 0, bytes / weight);
+      largest.packets = Math.max(largest.packets ?? 0, packets / weight);
+      largest.flows = Math.max(largest.flows ?? 0, 1 / weight);
+    }
+    if (tau > 0) {
+      for (const metric of CALIBRATION_METRICS) unseen[metric] = Math.max(unseen[metric], tau * unseenRatio(window.weightAttribute, metric, largest[metric]));
     }
   }
   const exact: Record<CalibrationMetric, bigint> = { bytes: window.bytes, packets: window.packets, flows: window.records };
   return CALIBRATION_METRICS.map((metric) => {
-    const interval = toInterval(sums[metric], { unseenTerm: maxTau * unseenPerWeight(window.weightAttribute, metric) });
+    const interval = toInterval(sums[metric], { unseenTerm: unseen[metric] });
     // Totals below 2^53 (9 PB in a window) compare exactly as doubles; larger ones lose only
     // rounding, far inside any interval with τ > 0.
     const truth = Number(exact[metric]);

@@ -2,7 +2,7 @@ import type { InStatement, InValue, Row } from "@libsql/client";
 import { ApiError } from "~/auth/api-keys.server";
 import type { Db } from "~/db/client.server";
 import type { ReservoirManager } from "~/ingest/manager.server";
-import { buildAnswer, unseenPerWeight, type EstimateAnswer, type WindowSpan } from "./answer";
+import { buildAnswer, largestRatio, unseenRatio, type EstimateAnswer, type WindowSpan } from "./answer";
 import type { KeptColumns } from "./columns";
 import { keptRowsToColumns } from "~/ingest/kept-codec";
 import type { EstimateQuery } from "./request";
@@ -88,12 +88,14 @@ export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, 
   const collectors = new Set<string>();
   const spans: WindowSpan[] = [];
   const exact = { records: 0n, bytes: 0n, packets: 0n };
-  // Records not kept in any covered reservoir had w < τ there: the intervals bound what they may
-  // add by the largest τ (see toInterval), live reservoirs' τ included.
-  let maxTau = 0;
-  for (const r of reservoirs) maxTau = Math.max(maxTau, r.tau);
+  // Records not kept in any covered reservoir had w < τ there: the intervals bound what one of
+  // them may add by the largest τ times the metric's ratio to the weight (see toInterval and
+  // unseenRatio), live reservoirs' τ included.
+  let unseenTerm = 0;
+  for (const r of reservoirs) {
+    if (r.tau > 0) unseenTerm = Math.max(unseenTerm, r.tau * unseenRatio(tenant.weightAttribute, metric, largestRatio(r.columns, metric)));
+  }
   for (const r of rows) {
-    maxTau = Math.max(maxTau, r.tau);
     windows.add(r.windowStart);
     spans.push({ windowStart: r.windowStart, windowSeconds: r.windowSeconds });
     collectors.add(r.collector);
@@ -112,7 +114,7 @@ export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, 
     to: query.to,
     selection,
     context: {
-      unseenTerm: maxTau * unseenPerWeight(tenant.weightAttribute, metric),
+      unseenTerm,
       cap: Number(metric === "bytes" ? exact.bytes : metric === "packets" ? exact.packets : exact.records),
     },
   });

@@ -6,6 +6,7 @@ import { type Interval, type IntervalContext, toInterval, Z95 } from "~/sampling
 import { mergeStates } from "~/sampling/merge";
 import type { ReservoirState } from "~/sampling/reservoir";
 import { seededUniform, type UniformSource } from "~/sampling/uniform";
+import { unseenRatio } from "~/query/answer";
 import { heavyTailedPopulation, type TestRecord } from "./population";
 
 export type Metric = "bytes" | "packets" | "flows";
@@ -102,7 +103,7 @@ export function sizeClassOf(share: number): number {
 /**
  * Runs `trials` independent samplings of every scenario and hands each (subset, metric)
  * answer to `visit`. The context is what the query path gives: unseenTerm = the largest τ
- * of the reservoirs read (times 1: packets ≤ bytes and a flow counts 1 with w ≥ 1 byte),
+ * of the reservoirs read times the metric's unseen ratio (app/query/answer.ts unseenRatio),
  * cap = the exact total of the metric over the range.
  */
 export function simulate(trials: number, seed: number, visit: (o: Outcome) => void, interval = toInterval): void {
@@ -111,15 +112,20 @@ export function simulate(trials: number, seed: number, visit: (o: Outcome) => vo
   for (let t = 0; t < trials; t++) {
     for (const s of setups) {
       const reservoirs = s.combine(s.windows.map((w) => sample(w, u)));
-      const maxTau = Math.max(...reservoirs.map((r) => r.tau));
+      // As the query path does (app/query/answer.ts unseenRatio): per reservoir, τ times the largest
+      // metric-to-weight ratio among its kept records (at most 1 under a byte weight).
+      const unseen = (metric: Metric) =>
+        Math.max(0, ...reservoirs.map((r) => (r.tau > 0 ? r.tau * unseenRatio("bytes", metric, r.kept.length === 0 ? null : Math.max(...r.kept.map((k) => value(k.item, metric) / k.weight))) : 0)));
+      const unseenByMetric = { bytes: unseen("bytes"), packets: unseen("packets"), flows: unseen("flows") };
       for (let j = 0; j < s.members.length; j++) {
         const sizeClass = sizeClassOf(s.share[j]);
         if (sizeClass < 0) continue;
         const m = s.members[j];
         for (const metric of METRICS) {
+          const unseenTerm = unseenByMetric[metric];
           const sum = { ...EMPTY_SUM };
           for (const r of reservoirs) for (const kept of r.kept) if (m[kept.item.id]) addRecord(sum, r.tau, kept.weight, value(kept.item, metric));
-          const context = { unseenTerm: maxTau, cap: s.totals[metric] };
+          const context = { unseenTerm, cap: s.totals[metric] };
           visit({ scenario: s.scenario, metric, sizeClass, truth: s.truth[j][metric], sum, context, interval: interval(sum, context) });
         }
       }
