@@ -1,13 +1,13 @@
 import type { Db } from "~/db/client.server";
 import { readStoredWindows } from "~/samples/store.server";
 import { maxHourlySampleSize } from "~/sampling/rollup";
-import { adviseSampleSize, rollUpTradeOff, type AdvisorRow, type AdvisorWindow, type RollUpTradeOff } from "./advisor";
+import { adviseSampleSize, rollUpTradeOff, TRADE_OFF_SHARE, type AdvisorRow, type AdvisorWindow, type RollUpTradeOff } from "./advisor";
 
 const DAY_MS = 24 * 3600_000;
 // Keeps the page's read bounded (about 100 × k kept records); the most recent windows count.
 const MAX_WINDOWS = 96;
-/** The share of the weight the roll-up trade-off is shown for: a subset holding 1% of it. */
-export const TRADE_OFF_SHARE = 0.01;
+// The share the roll-up trade-off is shown for lives in the pure module: the page's component reads it too.
+export { TRADE_OFF_SHARE };
 
 export interface SampleSizeAdvice {
   /** Fine windows the figures rest on, and the span they cover (epoch ms). */

@@ -189,3 +189,6 @@ export function rollUpTradeOff(windows: readonly AdvisorWindow[], hourlySampleSi
     widening: rseFine === 0 ? (rseHourly === 0 ? 1 : Infinity) : rseHourly / rseFine,
   };
 }
+
+/** The share of the bytes the roll-up trade-off in Settings is shown for (a 1% subset). */
+export const TRADE_OFF_SHARE = 0.01;
