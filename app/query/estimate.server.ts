@@ -92,8 +92,11 @@ export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, 
   // them may add by the largest τ times the metric's ratio to the weight (see toInterval and
   // unseenRatio), live reservoirs' τ included.
   let unseenTerm = 0;
+  const sameAsWeight = metric === tenant.weightAttribute;
   for (const r of reservoirs) {
-    if (r.tau > 0) unseenTerm = Math.max(unseenTerm, r.tau * unseenRatio(tenant.weightAttribute, metric, largestRatio(r.columns, metric)));
+    if (r.tau <= 0) continue;
+    // With the metric equal to the weight the ratio is exactly 1: no pass over the kept records.
+    unseenTerm = Math.max(unseenTerm, r.tau * unseenRatio(tenant.weightAttribute, metric, sameAsWeight ? null : largestRatio(r.columns, metric)));
   }
   for (const r of rows) {
     windows.add(r.windowStart);
