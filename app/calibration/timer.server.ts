@@ -1,5 +1,6 @@
 import type { Db } from "~/db/client.server";
 import type { Logger } from "~/logger.server";
+import { repeatEvery } from "~/server/repeat.server";
 import { runCalibrationChecks, type CalibrationOptions } from "./check.server";
 
 export interface CalibrationTimerOptions extends CalibrationOptions {
@@ -23,21 +24,13 @@ export const FIRST_RUN_DELAY_MS = 60_000;
  * ends (runs never overlap; a run that stopped at its bound is followed by the next at the
  * usual interval, so a backlog is worked off without starving ingest). A failure is logged,
  * never thrown. The timers are unref'd, so they never keep the process alive by themselves.
- * The same shape as the retention timer (app/retention/timer.server.ts).
+ * Scheduled by app/server/repeat.server.ts, as the retention timer is.
  */
 export function startCalibrationTimer(ctx: { db: Db; logger: Logger }, options: CalibrationTimerOptions): CalibrationTimer {
   const { db, logger } = ctx;
   const now = options.now ?? Date.now;
-  let stopped = false;
-  let timer: NodeJS.Timeout | undefined;
-  let running: Promise<void> | undefined;
-
-  const schedule = (delayMs: number) => {
-    timer = setTimeout(run, delayMs);
-    timer.unref();
-  };
-
-  async function pass(): Promise<void> {
+  if (options.intervalMs <= 0) logger.info("calibration timer off (CALIBRATION_INTERVAL_MINUTES=0)");
+  return repeatEvery(options.intervalMs, options.firstRunDelayMs ?? FIRST_RUN_DELAY_MS, async () => {
     const startedAt = performance.now();
     try {
       const report = await runCalibrationChecks(db, now(), { maxWindows: options.maxWindows });
@@ -45,23 +38,5 @@ export function startCalibrationTimer(ctx: { db: Db; logger: Logger }, options: 
     } catch (error) {
       logger.error({ err: error }, "calibration checks failed; retrying at the next interval");
     }
-  }
-
-  function run(): void {
-    running = pass().finally(() => {
-      running = undefined;
-      if (!stopped) schedule(options.intervalMs);
-    });
-  }
-
-  if (options.intervalMs > 0) schedule(options.firstRunDelayMs ?? FIRST_RUN_DELAY_MS);
-  else logger.info("calibration timer off (CALIBRATION_INTERVAL_MINUTES=0)");
-
-  return {
-    async stop() {
-      stopped = true;
-      clearTimeout(timer);
-      await running;
-    },
-  };
+  });
 }

@@ -1,4 +1,5 @@
 import type { Logger } from "~/logger.server";
+import { repeatEvery } from "~/server/repeat.server";
 import { retentionChanged, runRetention, type RetentionContext } from "./rollup.server";
 
 export interface RetentionTimerOptions {
@@ -26,19 +27,12 @@ export const FIRST_RUN_DELAY_MS = 60_000;
 export function startRetentionTimer(ctx: RetentionContext & { logger: Logger }, options: RetentionTimerOptions): RetentionTimer {
   const { logger } = ctx;
   const now = options.now ?? Date.now;
-  const stopping = new AbortController();
-  let timer: NodeJS.Timeout | undefined;
-  let running: Promise<void> | undefined;
-
-  const schedule = (delayMs: number) => {
-    timer = setTimeout(run, delayMs);
-    timer.unref();
-  };
-
-  async function pass(): Promise<void> {
+  if (options.intervalMs <= 0) logger.info("retention timer off (RETENTION_INTERVAL_MINUTES=0)");
+  // A stop aborts the run between transactions (runRetention checks the signal).
+  return repeatEvery(options.intervalMs, options.firstRunDelayMs ?? FIRST_RUN_DELAY_MS, async (signal) => {
     const startedAt = performance.now();
     try {
-      const reports = await runRetention(ctx, now(), { signal: stopping.signal });
+      const reports = await runRetention(ctx, now(), { signal });
       logger.info(
         {
           tenants: reports.length,
@@ -48,26 +42,8 @@ export function startRetentionTimer(ctx: RetentionContext & { logger: Logger }, 
         "retention run",
       );
     } catch (error) {
-      if (stopping.signal.aborted) logger.info("retention run stopped for shutdown; the next start continues it");
+      if (signal.aborted) logger.info("retention run stopped for shutdown; the next start continues it");
       else logger.error({ err: error }, "retention run failed; retrying at the next interval");
     }
-  }
-
-  function run(): void {
-    running = pass().finally(() => {
-      running = undefined;
-      if (!stopping.signal.aborted) schedule(options.intervalMs);
-    });
-  }
-
-  if (options.intervalMs > 0) schedule(options.firstRunDelayMs ?? FIRST_RUN_DELAY_MS);
-  else logger.info("retention timer off (RETENTION_INTERVAL_MINUTES=0)");
-
-  return {
-    async stop() {
-      stopping.abort();
-      clearTimeout(timer);
-      await running;
-    },
-  };
+  });
 }
