@@ -74,6 +74,21 @@ export const collectors = sqliteTable(
     kind: text("kind", { enum: COLLECTOR_KINDS }).notNull().default("stream"),
     createdAt: integer("created_at").notNull().$defaultFn(() => Date.now()),
     lastSeenAt: integer("last_seen_at"),
+    /**
+     * Set on a collector filled by sample-file imports (kind `copy` to readers; the column
+     * `kind` stays `stream`): JSON array of the collector names the imported files' provenance
+     * names. A copy holds records that may be counted elsewhere, so like a merge it is left out
+     * of "every collector" and is not combined with the collector it came from unless asked.
+     */
+    copyOf: text("copy_of"),
+    /** Records accepted with a start before the open window (late, within retention). */
+    lateRecords: integer("late_records").notNull().default(0),
+    /** Records refused for their times (in the future beyond the tolerance, before the floor, or older than retention). */
+    timeRefusedRecords: integer("time_refused_records").notNull().default(0),
+    /** Records accepted with a time ahead of the server's clock but within the tolerance (the exporter's clock runs ahead). */
+    clockSkewedRecords: integer("clock_skewed_records").notNull().default(0),
+    /** IPFIX information elements received and ignored (valid names Weir does not store), summed over records. */
+    ignoredFields: integer("ignored_fields").notNull().default(0),
   },
   (t) => [unique("collectors_tenant_name_unique").on(t.tenantId, t.name), check("collectors_kind_check", sql`${t.kind} in ('stream', 'merge')`)],
 );
@@ -441,3 +456,59 @@ export const windowChecks = sqliteTable(
 );
 
 export type WindowCheck = typeof windowChecks.$inferSelect;
+
+/**
+ * Every sample file imported into a tenant, by the SHA-256 of its bytes as received (after
+ * gzip decoding): the same file again is refused, naming this row.
+ */
+export const sampleImports = sqliteTable(
+  "sample_imports",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    tenantId: integer("tenant_id")
+      .notNull()
+      .references(() => tenants.id, { onDelete: "cascade" }),
+    collectorId: integer("collector_id")
+      .notNull()
+      .references(() => collectors.id, { onDelete: "cascade" }),
+    /** SHA-256 of the file, hex. */
+    digest: text("digest").notNull(),
+    windows: integer("windows").notNull(),
+    kept: integer("kept").notNull(),
+    records: integer("records").notNull(),
+    fromMs: integer("from_ms").notNull(),
+    toMs: integer("to_ms").notNull(),
+    /** A person's login or an API key prefix. */
+    createdBy: text("created_by").notNull(),
+    createdAt: integer("created_at").notNull().$defaultFn(() => Date.now()),
+  },
+  (t) => [unique("sample_imports_digest_unique").on(t.tenantId, t.digest)],
+);
+
+/**
+ * The windows a tenant has imported, by their provenance in the file (origin collector, node,
+ * window): a window of the same provenance imported again would count its records twice.
+ */
+export const importedWindows = sqliteTable(
+  "imported_windows",
+  {
+    id: integer("id").primaryKey({ autoIncrement: true }),
+    tenantId: integer("tenant_id")
+      .notNull()
+      .references(() => tenants.id, { onDelete: "cascade" }),
+    importId: integer("import_id")
+      .notNull()
+      .references(() => sampleImports.id, { onDelete: "cascade" }),
+    /** The collector and node named by the file for this window. */
+    sourceCollector: text("source_collector").notNull(),
+    sourceNode: text("source_node").notNull(),
+    windowStart: integer("window_start").notNull(),
+    windowSeconds: integer("window_seconds").notNull(),
+  },
+  (t) => [
+    unique("imported_windows_provenance_unique").on(t.tenantId, t.sourceCollector, t.sourceNode, t.windowStart, t.windowSeconds),
+    index("imported_windows_import_idx").on(t.importId),
+  ],
+);
+
+export type SampleImport = typeof sampleImports.$inferSelect;
