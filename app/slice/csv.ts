@@ -2,15 +2,43 @@
  * The Slice results as CSV (RFC 4180): a header line, one line for the whole subset and one
  * per group, CRLF line breaks, and fields quoted only when they must be.
  *
- * RFC 4180 has no comments; the first line starts with "#", which spreadsheet and data tools
- * can skip (common practice, e.g. pandas `comment="#"`), and holds no comma or quote, so a
- * reader that does not skip it still sees one field.
+ * RFC 4180 has no comments and spreadsheet tools take the first line as the header, so the
+ * caution travels as data: the last column, `note`, holds it on the first data line (the whole
+ * subset) and is empty below. Every line has the same fields (RFC 4180 §2, rule 4).
+ *
+ * The columns are one list (`CSV_COLUMNS`): a new column is one entry there.
  *
  * Pure module: no I/O, usable in the browser and on the server.
  */
 import type { EstimateAnswer, IntervalJson } from "../query/answer.ts";
 
-export const CSV_COLUMNS = ["key", "estimate", "std_error", "ci95_low", "ci95_high", "kept", "rough", "method", "rough_reason"] as const;
+/** One line's figures: the whole subset or one group, with the answer it belongs to. */
+export interface CsvLine {
+  key: string;
+  figures: IntervalJson;
+  answer: EstimateAnswer;
+}
+
+export interface CsvColumn {
+  name: string;
+  value(line: CsvLine): string;
+}
+
+/** The columns in file order; `note` stays last, so the caution reads after the figures. */
+export const CSV_COLUMNS: readonly CsvColumn[] = [
+  { name: "key", value: (l) => l.key },
+  { name: "estimate", value: (l) => String(l.figures.estimate) },
+  { name: "std_error", value: (l) => String(l.figures.stdError) },
+  { name: "ci95_low", value: (l) => String(l.figures.ci95[0]) },
+  { name: "ci95_high", value: (l) => String(l.figures.ci95[1]) },
+  { name: "kept", value: (l) => String(l.figures.kept) },
+  { name: "rough", value: (l) => String(l.figures.rough) },
+  { name: "method", value: (l) => l.figures.method },
+  { name: "rough_reason", value: (l) => l.figures.roughReason ?? "" },
+];
+
+/** The trailing column that holds the caution (first data line) and is empty on the others. */
+export const NOTE_COLUMN = "note";
 
 /** The key of the line that holds the whole subset, ahead of the groups. */
 export const TOTAL_KEY = "total";
@@ -31,33 +59,30 @@ export function csvRecord(fields: readonly string[]): string {
   return fields.map(csvField).join(",");
 }
 
-function row(key: string, e: IntervalJson): string {
-  return csvRecord([
-    key,
-    String(e.estimate),
-    String(e.stdError),
-    String(e.ci95[0]),
-    String(e.ci95[1]),
-    String(e.kept),
-    String(e.rough),
-    e.method,
-    e.roughReason ?? "",
-  ]);
+/**
+ * The caution the file carries: statistical, how each interval method reads, not for billing,
+ * how the groups were chosen (selection.ts: the winner's-curse note travels with the numbers),
+ * and the question asked.
+ */
+export function csvCaution(answer: EstimateAnswer, tenant: string, query: string): string {
+  return (
+    `Weir estimates for tenant ${tenant} are statistical (priority sampling; 95% intervals: method normal = estimate ± 1.96 SE; ` +
+    `gamma = Fay-Feuer gamma interval where the normal approximation would be poor, and then rough with its reason; ` +
+    `no-match = no sampled record matched, and the interval is 0 up to a bound) and not exact accounting: for billing use exact counts.` +
+    `${answer.selection ? ` Groups: ${answer.selection.note}` : ""} Query: ${query}`
+  );
 }
 
 /**
- * The answer as a CSV document. `query` describes the question in one line without commas
- * (`describeQuery` in query-state.ts); every line ends in CRLF (RFC 4180 §2, rules 1 and 2).
+ * The answer as a CSV document. `query` describes the question in one line (`describeQuery`
+ * in query-state.ts); every line ends in CRLF (RFC 4180 §2, rules 1 and 2).
  */
 export function estimatesCsv(answer: EstimateAnswer, tenant: string, query: string): string {
-  const comment =
-    `# Weir estimates for tenant ${tenant} are statistical (priority sampling; 95% intervals: method normal = estimate ± 1.96 SE; ` +
-    `gamma = Fay-Feuer gamma interval where the normal approximation would be poor and then rough with its reason; ` +
-    `no-match = no sampled record matched and the interval is 0 up to a bound) and not exact accounting: for billing use exact counts.` +
-    // How the groups were chosen (selection.ts): the winner's-curse note travels with the numbers.
-    `${answer.selection ? ` Groups: ${answer.selection.note}` : ""} Query: ${query}`;
-  const lines = [comment.replace(/[,"\r\n]/g, " "), csvRecord(CSV_COLUMNS), row(TOTAL_KEY, answer), ...answer.groups.map((g) => row(g.key, g))];
-  return lines.map((line) => `${line}\r\n`).join("");
+  const header = [...CSV_COLUMNS.map((c) => c.name), NOTE_COLUMN];
+  const lines: CsvLine[] = [{ key: TOTAL_KEY, figures: answer, answer }, ...answer.groups.map((g) => ({ key: g.key, figures: g, answer }))];
+  const caution = csvCaution(answer, tenant, query);
+  const records = lines.map((line, i) => [...CSV_COLUMNS.map((c) => c.value(line)), i === 0 ? caution : ""]);
+  return [header, ...records].map((fields) => `${csvRecord(fields)}\r\n`).join("");
 }
 
 /** A file name for the export, e.g. `weir-riverline-bytes-by-dst-20240501T0200Z.csv`. */

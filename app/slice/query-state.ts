@@ -284,7 +284,7 @@ export function estimateSearch(
 
 /**
  * The question in one line of plain words and `name=value` pairs, without commas or quotes
- * (the CSV export puts it in a comment line that simple CSV readers must not split).
+ * (the CSV export puts it in its note, which stays readable even where a tool splits at commas).
  *
  * @example describeQuery({ ...defaultSliceState(), lists: { ...defaultSliceState().lists, src: ["198.51.100.0/24", "2001:db8::/32"] } }, 0, 3600000, "bytes")
  *   // "from=1970-01-01T00:00:00Z; to=1970-01-01T01:00:00Z; metric=bytes; src=198.51.100.0/24 2001:db8::/32; top=10"

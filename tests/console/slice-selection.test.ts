@@ -7,6 +7,7 @@ import { SIMULTANEOUS_EXPLANATION } from "~/components/slice/Selection";
 import { buildAnswer } from "~/query/answer";
 import { rankGroups } from "~/query/selection";
 import { estimatesCsv } from "~/slice/csv";
+import { parse } from "csv-parse/sync";
 import { defaultSliceState, estimateSearch, parseSliceParams, sliceParams } from "~/slice/query-state";
 import { seededUniform } from "~/sampling/uniform";
 import { postFlows, startTestServer, tenantWithKey, type TestServer } from "../helpers/server";
@@ -52,12 +53,10 @@ describe("the group table and the CSV carry the selection note", () => {
     expect(html).toContain('data-selection="split"');
   });
 
-  it("the CSV header comment (RFC 4180 has none; a leading # line, common practice) holds the note", () => {
+  it("the CSV caution (the note column of the first data line, read with csv-parse) holds the selection note", () => {
     const csv = estimatesCsv(answerFor("estimate"), "riverline", "top=5");
-    const comment = csv.split("\r\n")[0];
-    expect(comment.startsWith("#")).toBe(true);
-    expect(comment).toContain("tend to be overstated (the winner's curse)");
-    expect(comment).not.toMatch(/[,"]/);
+    const records: Record<string, string>[] = parse(csv, { columns: true });
+    expect(records[0].note).toContain("tend to be overstated (the winner's curse)");
   });
 });
 

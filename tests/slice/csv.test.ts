@@ -1,4 +1,5 @@
 import fc from "fast-check";
+import { parse } from "csv-parse/sync";
 import { describe, expect, test } from "vitest";
 import type { EstimateAnswer } from "~/query/answer";
 import { csvField, csvFileName, csvRecord, estimatesCsv } from "~/slice/csv";
@@ -106,30 +107,56 @@ describe("the Slice export", () => {
     to: "2024-05-01T03:00:00.000Z",
     resolution: [{ windowSeconds: 300, windows: 2, from: "2024-05-01T02:00:00.000Z", to: "2024-05-01T02:10:00.000Z" }],
   };
-  const text = estimatesCsv(answer, "riverline", "from=2024-05-01T02:00:00Z; to=2024-05-01T03:00:00Z; metric=bytes; groupBy=src");
-  const lines = text.split("\r\n");
+  const query = "from=2024-05-01T02:00:00Z; to=2024-05-01T03:00:00Z; metric=bytes; groupBy=src";
+  const text = estimatesCsv(answer, "riverline", query);
+  const header = ["key", "estimate", "std_error", "ci95_low", "ci95_high", "kept", "rough", "method", "rough_reason", "note"];
 
-  test("opens with a comment line: statistical, not for billing, and the query; no comma or quote in it", () => {
-    expect(lines[0]).toMatch(/^# Weir estimates for tenant riverline are statistical/);
-    expect(lines[0]).toMatch(/for billing use exact counts/);
-    // The caution names each interval method the file may hold (app/sampling/interval.ts).
-    expect(lines[0]).toMatch(/normal = estimate ± 1.96 SE/);
-    expect(lines[0]).toMatch(/gamma = Fay-Feuer/);
-    expect(lines[0]).toMatch(/no-match = no sampled record matched/);
-    expect(lines[0]).toContain("Query: from=2024-05-01T02:00:00Z; to=2024-05-01T03:00:00Z; metric=bytes; groupBy=src");
-    expect(lines[0]).not.toMatch(/[,"]/);
+  test("a registry CSV parser (csv-parse) reads the first line as the header and the same number of fields on every line", () => {
+    // csv-parse refuses records whose field count differs from the first (CSV_RECORD_INCONSISTENT_FIELDS_LENGTH)
+    // unless told otherwise; a leading comment line, as spreadsheet tools read it, would become the header.
+    const rows: string[][] = parse(text, { record_delimiter: "\r\n" });
+    expect(rows[0]).toEqual(header);
+    expect(rows).toHaveLength(1 + 1 + answer.groups.length);
+    for (const row of rows) expect(row).toHaveLength(header.length);
+    // The same text against the RFC 4180 grammar, CRLF after every line (rules 1–3).
+    expect(readRfc4180(text)).toEqual(rows);
+    expect(text.endsWith("\r\n")).toBe(true);
   });
 
-  test("then the columns, the whole subset and each group with its interval, CRLF after every line (rules 1–3)", () => {
-    expect(text.endsWith("\r\n")).toBe(true);
-    expect(text.replace(/\r\n/g, "")).not.toMatch(/[\r\n]/);
-    const records = readRfc4180(text.slice(text.indexOf("\r\n") + 2));
-    expect(records).toEqual([
-      ["key", "estimate", "std_error", "ci95_low", "ci95_high", "kept", "rough", "method", "rough_reason"],
+  test("the whole subset, then each group with its interval; the caution in the last column of the first data line", () => {
+    const records: Record<string, string>[] = parse(text, { columns: true });
+    expect(records.map((r) => [r.key, r.estimate, r.std_error, r.ci95_low, r.ci95_high, r.kept, r.rough, r.method, r.rough_reason])).toEqual([
       ["total", "1234.5", "10", "1214.9", "1254.1", "40", "false", "normal", ""],
       ["198.51.100.0/24", "1000", "8", "984.3", "1015.7", "35", "false", "normal", ""],
       ["edge,with comma", "234.5", "6", "222.7", "246.3", "5", "true", "gamma", "the normal approximation would be poor: 5 uncertain terms"],
     ]);
+    const note = records[0].note;
+    expect(note).toMatch(/^Weir estimates for tenant riverline are statistical/);
+    expect(note).toMatch(/for billing use exact counts/);
+    // The caution names each interval method the file may hold (app/sampling/interval.ts).
+    expect(note).toMatch(/normal = estimate ± 1.96 SE/);
+    expect(note).toMatch(/gamma = Fay-Feuer/);
+    expect(note).toMatch(/no-match = no sampled record matched/);
+    expect(note).toContain(`Query: ${query}`);
+    expect(records.slice(1).map((r) => r.note)).toEqual(["", ""]);
+  });
+
+  test("numbers round-trip: each figure read back by csv-parse is the same double (fast-check)", () => {
+    const figure = fc.double({ min: 0, max: 1e18, noNaN: true });
+    fc.assert(
+      fc.property(fc.array(fc.tuple(figure, figure, figure, figure), { minLength: 1, maxLength: 5 }), (figures) => {
+        const groups = figures.map(([estimate, stdError, low, high], i) => ({ ...answer.groups[0], key: `198.51.100.${i}/32`, estimate, stdError, ci95: [low, high] as [number, number] }));
+        const records: Record<string, string>[] = parse(estimatesCsv({ ...answer, groups }, "riverline", query), { columns: true, cast: false });
+        records.slice(1).forEach((r, i) => {
+          expect(Number(r.estimate)).toBe(groups[i].estimate);
+          expect(Number(r.std_error)).toBe(groups[i].stdError);
+          expect(Number(r.ci95_low)).toBe(groups[i].ci95[0]);
+          expect(Number(r.ci95_high)).toBe(groups[i].ci95[1]);
+          expect(Number(r.kept)).toBe(groups[i].kept);
+        });
+      }),
+      { numRuns: 200 },
+    );
   });
 
   test("names the file after tenant, metric, grouping and start", () => {
