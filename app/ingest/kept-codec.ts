@@ -1,5 +1,6 @@
 import type { FlowRecord } from "~/flow/record";
-import { emptyColumns, type KeptColumns } from "~/query/columns";
+import { emptyColumns, presenceBit, type KeptColumns } from "~/query/columns";
+import { NUMBER_COLUMNS, type NumberColumn } from "~/query/fields";
 import { writeFlowKey } from "~/sampling/coordinated";
 
 /**
@@ -40,6 +41,14 @@ const INGRESS = 1;
 const EGRESS = 2;
 const SRC_AS = 4;
 const DST_AS = 8;
+
+/** Where a row keeps each optional unsigned32 field, and its bit in the presence byte (offset 85). */
+const OPTIONAL_AT: Record<NumberColumn, { at: number; bit: number }> = {
+  ingressInterface: { at: 88, bit: INGRESS },
+  egressInterface: { at: 92, bit: EGRESS },
+  srcAs: { at: 96, bit: SRC_AS },
+  dstAs: { at: 100, bit: DST_AS },
+};
 
 function writeRow(out: Uint8Array, view: DataView, o: number, priority: number, weight: number, r: FlowRecord): void {
   view.setFloat64(o, priority, true);
@@ -130,6 +139,7 @@ export function keptRowsToColumns(data: Uint8Array): KeptColumns {
   const n = data.byteLength / KEPT_ROW_BYTES;
   const view = new DataView(data.buffer, data.byteOffset, data.byteLength);
   const c = emptyColumns(n);
+  const optional = NUMBER_COLUMNS.map((name) => ({ at: OPTIONAL_AT[name].at, rowBit: OPTIONAL_AT[name].bit, bit: presenceBit(name), column: c.numbers[name] }));
   for (let i = 0; i < n; i++) {
     const o = i * KEPT_ROW_BYTES;
     c.weight[i] = view.getFloat64(o + 8, true);
@@ -141,6 +151,13 @@ export function keptRowsToColumns(data: Uint8Array): KeptColumns {
     c.sport[i] = view.getUint16(o + 80, true);
     c.dport[i] = view.getUint16(o + 82, true);
     c.proto[i] = data[o + 84];
+    const flags = data[o + 85];
+    if (flags === 0) continue;
+    for (const { at, rowBit, bit, column } of optional) {
+      if ((flags & rowBit) === 0) continue;
+      column[i] = view.getUint32(o + at, true);
+      c.present[i] |= bit;
+    }
   }
   return c;
 }

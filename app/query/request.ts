@@ -7,14 +7,13 @@
  * Pure module: no I/O, usable in the browser and on the server.
  */
 import { z } from "zod";
-import { parsePrefix, type Prefix } from "../net/prefix.ts";
+import { FILTER_FIELDS, FILTER_NAMES, GROUP_BY, VALUE_KINDS, type GroupByKind, type NumberRange, type WhereFilters, type WhereRequest } from "./fields.ts";
+
+export { GROUP_BY, type GroupByKind } from "./fields.ts";
 
 /** What the estimate sums: a record's bytes, its packets, or 1 per record (flows). */
 export const METRICS = ["bytes", "packets", "flows"] as const;
 export type Metric = (typeof METRICS)[number];
-
-export const GROUP_BY = ["src", "dst", "sport", "dport", "proto", "collector", "window"] as const;
-export type GroupByKind = (typeof GROUP_BY)[number];
 
 /** Group prefix lengths when none are given: a /24 per IPv4 network, a /64 per IPv6 subnet (RFC 4291 §2.5.4). */
 export const DEFAULT_PREFIX_LENGTH = { ipv4: 24, ipv6: 64 } as const;
@@ -35,35 +34,20 @@ export const MAX_LIST_ITEMS = 256;
 
 const DAY_MS = 86_400_000;
 
-/** An inclusive range of transport ports. */
-export interface PortRange {
-  low: number;
-  high: number;
-}
+/** An inclusive range of transport ports (fields.ts). */
+export type PortRange = NumberRange;
 
 export type GroupBy =
   | { by: "src" | "dst"; prefixLength: { ipv4: number; ipv6: number } }
-  | { by: "sport" | "dport" | "proto" | "collector" | "window" };
+  | { by: Exclude<GroupByKind, "src" | "dst"> };
 
 /** A request as sent in JSON. A list field also takes a single value. */
 export interface EstimateRequest {
   /** ISO 8601 with a timezone (or a date, read as UTC midnight), or epoch milliseconds. */
   from: string | number;
   to: string | number;
-  where?: {
-    /** CIDR prefixes, IPv4 or IPv6; a bare address is a /32 or /128. */
-    src?: string | string[];
-    dst?: string | string[];
-    srcExclude?: string | string[];
-    dstExclude?: string | string[];
-    /** Ports, or ranges such as "1024-65535". */
-    sport?: number | string | (number | string)[];
-    dport?: number | string | (number | string)[];
-    /** IP protocol numbers (IANA): 6 TCP, 17 UDP, 1 ICMP, … */
-    proto?: number | number[];
-    /** Collector names. */
-    collectors?: string | string[];
-  };
+  /** Filters: the fields of fields.ts (CIDR prefixes, ports, protocols, AS numbers, interfaces, collectors). */
+  where?: WhereRequest;
   metric?: Metric;
   groupBy?: GroupByKind;
   /** With groupBy src or dst: one length for both families (0–32), or one per family on its own scale. */
@@ -77,16 +61,7 @@ export interface EstimateRequest {
 export interface EstimateQuery {
   from: number;
   to: number;
-  where: {
-    src: Prefix[];
-    dst: Prefix[];
-    srcExclude: Prefix[];
-    dstExclude: Prefix[];
-    sport: PortRange[];
-    dport: PortRange[];
-    proto: number[];
-    collectors: string[];
-  };
+  where: WhereFilters;
   /** null: the tenant's weight attribute. */
   metric: Metric | null;
   groupBy: GroupBy | null;
@@ -170,38 +145,6 @@ const time = z.unknown().transform((value, ctx): number => {
  */
 export const requestTimeSchema = time;
 
-const cidr = z.unknown().transform((value, ctx): Prefix => {
-  if (typeof value !== "string") return fail(ctx, value, "must be CIDR text such as 198.51.100.0/24 or 2001:db8::/32");
-  try {
-    return parsePrefix(value);
-  } catch (error) {
-    return fail(ctx, value, (error as Error).message);
-  }
-});
-
-const PORT_FORM = 'must be a port 0–65535 or a range such as "1024-65535"';
-
-const portRange = z.unknown().transform((value, ctx): PortRange => {
-  if (typeof value === "number") {
-    return Number.isInteger(value) && value >= 0 && value <= 65535 ? { low: value, high: value } : fail(ctx, value, PORT_FORM);
-  }
-  if (typeof value !== "string") return fail(ctx, value, PORT_FORM);
-  const m = /^(\d{1,5})(?:-(\d{1,5}))?$/.exec(value);
-  if (!m) return fail(ctx, value, PORT_FORM);
-  const low = Number(m[1]);
-  const high = m[2] === undefined ? low : Number(m[2]);
-  if (low > 65535 || high > 65535) return fail(ctx, value, `${PORT_FORM}; ports stop at 65535 (RFC 7012 unsigned16)`);
-  if (low > high) return fail(ctx, value, `is a range that ends before it starts; did you mean "${high}-${low}"?`);
-  return { low, high };
-});
-
-const protocol = z.int({ error: "must be an IP protocol number from 0 to 255 (IANA registry; 6 = TCP, 17 = UDP)" }).min(0).max(255);
-
-const collectorName = z
-  .string({ error: "must be a collector name" })
-  .min(1, { error: "must be a collector name, not empty" })
-  .max(64, { error: "must be a collector name of at most 64 characters" });
-
 /** A list field: an array, or one bare value standing for a list of one. */
 function list<T extends z.ZodType>(item: T, what: string) {
   return z.preprocess(
@@ -241,21 +184,13 @@ const prefixLengthSchema = z.unknown().transform((value, ctx): number | { ipv4?:
 
 // ---- the request -------------------------------------------------------------------------
 
+// Every filter of the table, each a list of its kind's items.
 const whereSchema = z.strictObject(
-  {
-    src: list(cidr, "CIDR prefixes"),
-    dst: list(cidr, "CIDR prefixes"),
-    srcExclude: list(cidr, "CIDR prefixes"),
-    dstExclude: list(cidr, "CIDR prefixes"),
-    sport: list(portRange, "ports or port ranges"),
-    dport: list(portRange, "ports or port ranges"),
-    proto: list(protocol, "IP protocol numbers"),
-    collectors: list(collectorName, "collector names"),
-  },
-  { error: "must be an object of filters (src, dst, srcExclude, dstExclude, sport, dport, proto, collectors)" },
+  Object.fromEntries(FILTER_FIELDS.map((f) => [f.name, list(VALUE_KINDS[f.value].item, VALUE_KINDS[f.value].items)])),
+  { error: `must be an object of filters (${FILTER_NAMES.join(", ")})` },
 );
 
-const WHERE_FIELDS = Object.keys(whereSchema.shape);
+const WHERE_FIELDS: readonly string[] = FILTER_NAMES;
 
 const requestObject = z.strictObject(
   {
@@ -298,7 +233,7 @@ export const estimateRequestSchema = requestObject
     }
   })
   .transform((q): EstimateQuery => {
-    const where = q.where ?? whereSchema.parse({});
+    const where = (q.where ?? whereSchema.parse({})) as WhereFilters;
     let groupBy: GroupBy | null = null;
     if (q.groupBy === "src" || q.groupBy === "dst") {
       const given = q.prefixLength;
@@ -377,7 +312,8 @@ export function parseEstimateRequest(body: unknown): ParsedQuery {
 // ---- the query-string form ------------------------------------------------------------------
 
 const QUERY_SCALARS = ["from", "to", "metric", "groupBy", "prefixLength", "top", "rank"] as const;
-const NUMERIC_LISTS = new Set(["proto"]);
+/** Filters whose items a query string hands on as numbers (protocols take numbers only). */
+const NUMERIC_LISTS = new Set<string>(FILTER_FIELDS.filter((f) => VALUE_KINDS[f.value].numbers).map((f) => f.name));
 
 function digitsToNumber(text: string): string | number {
   return /^\d{1,16}$/.test(text) ? Number(text) : text;

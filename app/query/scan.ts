@@ -16,8 +16,19 @@
 import { isIPv4Mapped } from "../net/address.ts";
 import { formatPrefix, type Prefix } from "../net/prefix.ts";
 import { addRecord, addSums, EMPTY_SUM, type EstimateSum } from "../sampling/estimate.ts";
-import type { KeptColumns } from "./columns.ts";
-import type { EstimateQuery, Metric, PortRange } from "./request.ts";
+import { presenceBit, type KeptColumns } from "./columns.ts";
+import {
+  FILTER_FIELDS,
+  groupField,
+  NO_VALUE_KEY,
+  SMALL_COLUMNS,
+  type AddressColumn,
+  type FieldColumn,
+  type NumberColumn,
+  type NumberRange,
+  type SmallColumn,
+} from "./fields.ts";
+import type { EstimateQuery, Metric } from "./request.ts";
 
 /** One reservoir's part of a scan: its threshold, where it comes from, and its kept records. */
 export interface ScanReservoir {
@@ -37,7 +48,19 @@ interface PrefixSet {
   values: Int32Array;
 }
 
-const Group = { None: 0, Src: 1, Dst: 2, Sport: 3, Dport: 4, Proto: 5, Collector: 6, Window: 7 } as const;
+/**
+ * One filter of the query over one column, by the kind of column it reads (fields.ts): a
+ * lookup table indexed by a small whole number (ports, protocol), a prefix set over an address,
+ * or sorted disjoint ranges over an optional unsigned32 (AS numbers, interfaces), which a record
+ * without the value never matches.
+ */
+export type Check =
+  | { kind: "table"; column: SmallColumn; table: Uint8Array }
+  | { kind: "prefix"; column: AddressColumn; set: PrefixSet; exclude: boolean }
+  | { kind: "ranges"; column: NumberColumn; bit: number; lows: Float64Array; highs: Float64Array };
+
+/** How records are grouped; 0 is no group-by (selection.ts relies on it). */
+const Group = { None: 0, Prefix: 1, Small: 2, Number: 3, Collector: 4, Window: 5 } as const;
 type Group = (typeof Group)[keyof typeof Group];
 
 /** An estimate query turned into lookup tables; build it with `compileQuery`. */
@@ -46,16 +69,12 @@ export interface CompiledQuery {
   to: number;
   /** null: every collector. */
   collectors: ReadonlySet<string> | null;
-  src: PrefixSet;
-  dst: PrefixSet;
-  srcExclude: PrefixSet;
-  dstExclude: PrefixSet;
-  /** 1 at each port to keep; null: every port. */
-  sport: Uint8Array | null;
-  dport: Uint8Array | null;
-  proto: Uint8Array | null;
+  /** Every record filter, cheapest first. */
+  checks: Check[];
   metric: Metric;
   group: Group;
+  /** The column a group-by reads (the field's column in fields.ts). */
+  groupColumn: FieldColumn | null;
   /** Group masks of IPv4 (mapped) and IPv6 addresses, as words. */
   groupMask4: Int32Array;
   groupMask6: Int32Array;
@@ -104,29 +123,63 @@ function prefixSet(prefixes: readonly Prefix[]): PrefixSet {
   return { count: prefixes.length, masks, values };
 }
 
-function portTable(ranges: readonly PortRange[]): Uint8Array | null {
-  if (ranges.length === 0) return null;
-  const table = new Uint8Array(65536);
-  for (const { low, high } of ranges) table.fill(1, low, high + 1);
+/** 1 at every value a list of ranges (ports) or numbers (protocols) keeps. */
+function lookupTable(items: readonly (NumberRange | number)[], size: number): Uint8Array {
+  const table = new Uint8Array(size);
+  for (const item of items) {
+    if (typeof item === "number") table[item] = 1;
+    else table.fill(1, item.low, item.high + 1);
+  }
   return table;
 }
 
-function protoTable(protos: readonly number[]): Uint8Array | null {
-  if (protos.length === 0) return null;
-  const table = new Uint8Array(256);
-  for (const p of protos) table[p] = 1;
-  return table;
+/** Ranges sorted and merged where they overlap or touch, for a binary search. */
+function mergedRanges(ranges: readonly NumberRange[]): { lows: Float64Array; highs: Float64Array } {
+  const sorted = [...ranges].sort((a, b) => a.low - b.low);
+  const lows: number[] = [];
+  const highs: number[] = [];
+  for (const { low, high } of sorted) {
+    const last = highs.length - 1;
+    if (last >= 0 && low <= highs[last] + 1) highs[last] = Math.max(highs[last], high);
+    else {
+      lows.push(low);
+      highs.push(high);
+    }
+  }
+  return { lows: Float64Array.from(lows), highs: Float64Array.from(highs) };
 }
 
-const GROUP_CODES = {
-  src: Group.Src,
-  dst: Group.Dst,
-  sport: Group.Sport,
-  dport: Group.Dport,
-  proto: Group.Proto,
-  collector: Group.Collector,
-  window: Group.Window,
-} as const;
+function isSmall(column: FieldColumn): column is SmallColumn {
+  return column in SMALL_COLUMNS;
+}
+
+const CHECK_ORDER = { table: 0, ranges: 1, prefix: 2 } as const;
+
+/** The record filters of a query, one per non-empty list of fields.ts (the collector list is per reservoir). */
+function compileChecks(where: EstimateQuery["where"]): Check[] {
+  const checks: Check[] = [];
+  for (const field of FILTER_FIELDS) {
+    const items = where[field.name] as readonly unknown[];
+    if (items.length === 0) continue;
+    const column = field.column as FieldColumn;
+    if (column === "src" || column === "dst") {
+      checks.push({ kind: "prefix", column, set: prefixSet(items as Prefix[]), exclude: "exclude" in field && field.exclude === true });
+    } else if (isSmall(column)) {
+      checks.push({ kind: "table", column, table: lookupTable(items as (NumberRange | number)[], SMALL_COLUMNS[column]) });
+    } else if (column !== "collector" && column !== "window") {
+      checks.push({ kind: "ranges", column, bit: presenceBit(column), ...mergedRanges(items as NumberRange[]) });
+    }
+  }
+  // Cheap checks first: a lookup rejects most records with one load.
+  return checks.sort((a, b) => CHECK_ORDER[a.kind] - CHECK_ORDER[b.kind]);
+}
+
+function groupOf(column: FieldColumn): Group {
+  if (column === "src" || column === "dst") return Group.Prefix;
+  if (column === "collector") return Group.Collector;
+  if (column === "window") return Group.Window;
+  return isSmall(column) ? Group.Small : Group.Number;
+}
 
 /** IPv4-mapped addresses are 96 bits of ::ffff:0:0/96 followed by the IPv4 address (RFC 4291 §2.5.5.2). */
 const MAPPED_BITS = 96;
@@ -135,24 +188,20 @@ const MAPPED_BITS = 96;
  * Compiles a validated query for `scan`. `metric` is the query's metric, or the tenant's
  * weight attribute when the query names none.
  *
- * @example compileQuery(parsed.query, "bytes") // { src: { count: 1, … }, dport: Uint8Array(65536), group: …, top: 10, … }
+ * @example compileQuery(parsed.query, "bytes") // { checks: [{ kind: "table", column: "dport", … }, { kind: "prefix", column: "src", … }], group: …, top: 10, … }
  */
 export function compileQuery(query: EstimateQuery, metric: Metric): CompiledQuery {
   const { where, groupBy } = query;
   const lengths = groupBy !== null && "prefixLength" in groupBy ? groupBy.prefixLength : { ipv4: 32, ipv6: 128 };
+  const groupColumn = groupBy === null ? null : (groupField(groupBy.by).column as FieldColumn);
   return {
     from: query.from,
     to: query.to,
     collectors: where.collectors.length > 0 ? new Set(where.collectors) : null,
-    src: prefixSet(where.src),
-    dst: prefixSet(where.dst),
-    srcExclude: prefixSet(where.srcExclude),
-    dstExclude: prefixSet(where.dstExclude),
-    sport: portTable(where.sport),
-    dport: portTable(where.dport),
-    proto: protoTable(where.proto),
+    checks: compileChecks(where),
     metric,
-    group: groupBy === null ? Group.None : GROUP_CODES[groupBy.by],
+    group: groupColumn === null ? Group.None : groupOf(groupColumn),
+    groupColumn,
     groupMask4: maskWords(MAPPED_BITS + lengths.ipv4),
     groupMask6: maskWords(lengths.ipv6),
     groupLength4: lengths.ipv4,
@@ -249,6 +298,56 @@ function matchesAny(set: PrefixSet, words: Int32Array, o: number): boolean {
   return false;
 }
 
+function inRanges(value: number, lows: Float64Array, highs: Float64Array): boolean {
+  let lo = 0;
+  let hi = lows.length - 1;
+  while (lo <= hi) {
+    const mid = (lo + hi) >> 1;
+    if (value < lows[mid]) hi = mid - 1;
+    else if (value > highs[mid]) lo = mid + 1;
+    else return true;
+  }
+  return false;
+}
+
+/**
+ * Keeps in `sel[0..m)` the record indexes that pass one check, in order, and returns how many.
+ * One tight loop per kind of check, so each stays monomorphic.
+ */
+function narrow(check: Check, c: KeptColumns, words: { src: Int32Array; dst: Int32Array }, sel: Int32Array, m: number): number {
+  let kept = 0;
+  switch (check.kind) {
+    case "table": {
+      const column = c[check.column];
+      const table = check.table;
+      for (let j = 0; j < m; j++) {
+        const i = sel[j];
+        if (table[column[i]] !== 0) sel[kept++] = i;
+      }
+      return kept;
+    }
+    case "ranges": {
+      const column = c.numbers[check.column];
+      const { bit, lows, highs } = check;
+      const present = c.present;
+      for (let j = 0; j < m; j++) {
+        const i = sel[j];
+        if ((present[i] & bit) !== 0 && inRanges(column[i], lows, highs)) sel[kept++] = i;
+      }
+      return kept;
+    }
+    case "prefix": {
+      const a = words[check.column];
+      const { set, exclude } = check;
+      for (let j = 0; j < m; j++) {
+        const i = sel[j];
+        if (matchesAny(set, a, 4 * i) !== exclude) sel[kept++] = i;
+      }
+      return kept;
+    }
+  }
+}
+
 /**
  * Runs a compiled query over reservoirs: reservoirs outside the query's windows or
  * collectors are skipped; every matching kept record adds `addRecord(sum, τ, w, x)` with
@@ -264,12 +363,16 @@ export function scan(reservoirs: readonly ScanReservoir[], q: CompiledQuery): Sc
   const part: EstimateSum = { ...EMPTY_SUM };
   const sums: EstimateSum[] = [];
   const words = new WordKeyTable();
+  const group = q.group;
+  const column = q.groupColumn;
   // Group ids by port or protocol number, -1 until the group is seen.
-  const byValue = new Int32Array(q.group === Group.Sport || q.group === Group.Dport ? 65536 : q.group === Group.Proto ? 256 : 0).fill(-1);
+  const byValue = new Int32Array(group === Group.Small ? SMALL_COLUMNS[column as SmallColumn] : 0).fill(-1);
+  // Group ids by unsigned32 value (AS number, interface); -1 keys the records without one.
+  const byNumber = new Map<number, number>();
   const byReservoirKey = new Map<string | number, number>();
   const values: (string | number)[] = [];
-  const group = q.group;
-  const { src, dst, srcExclude, dstExclude, sport, dport, proto, groupMask4: g4, groupMask6: g6 } = q;
+  const { checks, groupMask4: g4, groupMask6: g6 } = q;
+  let sel = new Int32Array(0);
 
   for (const r of reservoirs) {
     if (r.windowStart < q.from || r.windowStart >= q.to) continue;
@@ -278,25 +381,26 @@ export function scan(reservoirs: readonly ScanReservoir[], q: CompiledQuery): Sc
     const n = c.length;
     if (n === 0) continue;
     const tau = r.tau;
-    const srcWords = wordsOf(c.src, n);
-    const dstWords = wordsOf(c.dst, n);
+    const addressWords = { src: wordsOf(c.src, n), dst: wordsOf(c.dst, n) };
+    if (sel.length < n) sel = new Int32Array(n);
+    for (let i = 0; i < n; i++) sel[i] = i;
+    let m = n;
+    for (let k = 0; k < checks.length && m > 0; k++) m = narrow(checks[k], c, addressWords, sel, m);
+    if (m === 0) continue;
+
     const x = q.metric === "bytes" ? c.bytes : q.metric === "packets" ? c.packets : null;
+    const groupWords = column === "src" || column === "dst" ? addressWords[column] : null;
+    const smalls = group === Group.Small ? c[column as SmallColumn] : null;
+    const numbers = group === Group.Number ? c.numbers[column as NumberColumn] : null;
+    const bit = group === Group.Number ? presenceBit(column as NumberColumn) : 0;
     // Collector and window groups are one per reservoir, looked up at its first match so that,
     // as for every other kind, a group exists only when some kept record matched.
     const reservoirKey = group === Group.Collector ? r.collector : r.windowStart;
     let reservoirGroup = -1;
     part.estimate = part.variance = part.certain = part.kept = part.uncertain = part.maxTerm = 0;
 
-    for (let i = 0; i < n; i++) {
-      if (proto !== null && proto[c.proto[i]] === 0) continue;
-      if (sport !== null && sport[c.sport[i]] === 0) continue;
-      if (dport !== null && dport[c.dport[i]] === 0) continue;
-      const o = 4 * i;
-      if (src.count > 0 && !matchesAny(src, srcWords, o)) continue;
-      if (dst.count > 0 && !matchesAny(dst, dstWords, o)) continue;
-      if (srcExclude.count > 0 && matchesAny(srcExclude, srcWords, o)) continue;
-      if (dstExclude.count > 0 && matchesAny(dstExclude, dstWords, o)) continue;
-
+    for (let j = 0; j < m; j++) {
+      const i = sel[j];
       const w = c.weight[i];
       const value = x === null ? 1 : x[i];
       addRecord(part, tau, w, value);
@@ -314,20 +418,30 @@ export function scan(reservoirs: readonly ScanReservoir[], q: CompiledQuery): Sc
           }
           reservoirGroup = id;
         }
-      } else if (group === Group.Src || group === Group.Dst) {
-        const a = group === Group.Src ? srcWords : dstWords;
+      } else if (groupWords !== null) {
+        const a = groupWords;
+        const o = 4 * i;
         const a0 = a[o];
         const a1 = a[o + 1];
         const a2 = a[o + 2];
-        const m = a0 === 0 && a1 === 0 && a2 === MAPPED_WORD2 ? g4 : g6;
-        id = words.idOf(a0 & m[0], a1 & m[1], a2 & m[2], a[o + 3] & m[3]);
+        const mask = a0 === 0 && a1 === 0 && a2 === MAPPED_WORD2 ? g4 : g6;
+        id = words.idOf(a0 & mask[0], a1 & mask[1], a2 & mask[2], a[o + 3] & mask[3]);
         if (id === sums.length) sums.push({ ...EMPTY_SUM });
-      } else {
-        const key = group === Group.Sport ? c.sport[i] : group === Group.Dport ? c.dport[i] : c.proto[i];
+      } else if (smalls !== null) {
+        const key = smalls[i];
         id = byValue[key];
         if (id < 0) {
           id = byValue[key] = sums.length;
           values.push(key);
+          sums.push({ ...EMPTY_SUM });
+        }
+      } else if (numbers !== null) {
+        const key = (c.present[i] & bit) !== 0 ? numbers[i] : -1;
+        id = byNumber.get(key) ?? -1;
+        if (id < 0) {
+          id = sums.length;
+          byNumber.set(key, id);
+          values.push(key < 0 ? NO_VALUE_KEY : key);
           sums.push({ ...EMPTY_SUM });
         }
       }
@@ -360,12 +474,12 @@ function compareValues(a: string | number, b: string | number): number {
 
 /**
  * The `top` groups by estimate, largest first; equal estimates in key order (addresses in
- * byte order, numbers numerically, names by code unit) so the answer does not depend on the
- * order records were stored in.
+ * byte order, numbers numerically, names by code unit, "none" after every number) so the answer
+ * does not depend on the order records were stored in.
  */
 function topGroups(q: CompiledQuery, sums: EstimateSum[], values: (string | number)[], words: WordKeyTable): ScanGroup[] {
   if (q.group === Group.None) return [];
-  const byPrefix = q.group === Group.Src || q.group === Group.Dst;
+  const byPrefix = q.group === Group.Prefix;
   const ids = Array.from(sums.keys());
   const prefixes = byPrefix ? ids.map((id) => prefixOfWords(words.words, id, q)) : [];
   ids.sort((a, b) => {
@@ -378,8 +492,7 @@ function topGroups(q: CompiledQuery, sums: EstimateSum[], values: (string | numb
 
 function groupKey(q: CompiledQuery, id: number, values: (string | number)[], prefixes: Prefix[]): string {
   switch (q.group) {
-    case Group.Src:
-    case Group.Dst:
+    case Group.Prefix:
       return formatPrefix(prefixes[id]);
     case Group.Window:
       return new Date(values[id] as number).toISOString();

@@ -45,7 +45,7 @@
  */
 import { sipHash24 } from "../sampling/siphash.ts";
 import { bonferroniZ } from "../sampling/normal-quantile.ts";
-import { emptyColumns, type KeptColumns } from "./columns.ts";
+import { copyRecord, emptyColumns, type KeptColumns } from "./columns.ts";
 import { scan, type CompiledQuery, type ScanGroup, type ScanReservoir, type ScanResult } from "./scan.ts";
 import { EMPTY_SUM } from "../sampling/estimate.ts";
 import type { RankMode } from "./request.ts";
@@ -131,16 +131,7 @@ function pick(c: KeptColumns, indices: readonly number[], weights: readonly numb
   const out = emptyColumns(indices.length);
   indices.forEach((i, j) => {
     out.weight[j] = weights[j];
-    out.bytes[j] = c.bytes[i];
-    out.packets[j] = c.packets[i];
-    for (let b = 0; b < 16; b++) {
-      out.src[16 * j + b] = c.src[16 * i + b];
-      out.dst[16 * j + b] = c.dst[16 * i + b];
-    }
-    out.sport[j] = c.sport[i];
-    out.dport[j] = c.dport[i];
-    out.proto[j] = c.proto[i];
-    out.start[j] = c.start[i];
+    copyRecord(c, i, out, j);
   });
   return out;
 }

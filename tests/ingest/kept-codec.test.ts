@@ -2,6 +2,7 @@ import fc from "fast-check";
 import { describe, expect, it } from "vitest";
 import { decodeKeptRow, encodeKeptRows, KEPT_ROW_BYTES, keptRowsToColumns, packFlowRecords } from "~/ingest/kept-codec";
 import type { FlowRecord } from "~/flow/record";
+import { toColumns } from "~/query/columns";
 
 // The stored row layout must give back every field exactly, counters up to
 // 2^64 − 1 (RFC 7012 unsigned64) and absent optional fields included.
@@ -48,6 +49,9 @@ describe("kept-record rows", () => {
           expect(c.dport[i]).toBe(r.record.dport);
           expect(Number.isNaN(c.start[i]) ? null : c.start[i]).toBe(r.record.start);
         });
+        // Every column, the optional AS numbers and interfaces with their presence bits included, as
+        // a live reservoir lays the same records out (the two paths a query reads).
+        expect(c).toEqual(toColumns(rows));
       }),
     );
   });

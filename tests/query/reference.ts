@@ -1,7 +1,9 @@
 // The reference a query is checked against: plain predicates over whole records, written from
 // the request's documented meaning (include lists OR within a field and AND across fields,
-// excludes remove matches, a port matches any listed port or range) with the prefix match of
-// RFC 4632 §3.1 (`prefixContains`). Nothing here shares code with the scan.
+// excludes remove matches, a port matches any listed port or range, an AS number or interface
+// index likewise, and a record without that value matches no list of the field) with the prefix
+// match of RFC 4632 §3.1 (`prefixContains`). Nothing here shares code with the scan or with
+// the field table (app/query/fields.ts).
 import { isIPv4Mapped } from "~/net/address";
 import { coveringPrefix, formatPrefix, prefixContains, type Prefix } from "~/net/prefix";
 import type { EstimateQuery, Metric, PortRange } from "~/query/request";
@@ -14,10 +16,21 @@ export interface PlainRecord {
   proto: number;
   bytes: number;
   packets: number;
+  /** bgpSourceAsNumber, bgpDestinationAsNumber, ingressInterface, egressInterface; null or absent: not sent. */
+  srcAs?: number | null;
+  dstAs?: number | null;
+  inIf?: number | null;
+  outIf?: number | null;
 }
 
 function inPorts(port: number, ranges: PortRange[]): boolean {
   return ranges.length === 0 || ranges.some((r) => port >= r.low && port <= r.high);
+}
+
+/** An optional value: matched by no list when absent. */
+function inNumbers(value: number | null | undefined, ranges: PortRange[]): boolean {
+  if (ranges.length === 0) return true;
+  return value !== null && value !== undefined && ranges.some((r) => value >= r.low && value <= r.high);
 }
 
 function anyContains(prefixes: Prefix[], address: Uint8Array): boolean {
@@ -34,7 +47,11 @@ export function matchesWhere(q: EstimateQuery, r: PlainRecord): boolean {
     !anyContains(w.dstExclude, r.dst) &&
     inPorts(r.sport, w.sport) &&
     inPorts(r.dport, w.dport) &&
-    (w.proto.length === 0 || w.proto.includes(r.proto))
+    (w.proto.length === 0 || w.proto.includes(r.proto)) &&
+    inNumbers(r.srcAs, w.srcAs) &&
+    inNumbers(r.dstAs, w.dstAs) &&
+    inNumbers(r.inIf, w.inIf) &&
+    inNumbers(r.outIf, w.outIf)
   );
 }
 
@@ -62,5 +79,13 @@ export function groupKey(q: EstimateQuery, r: PlainRecord, collector: string, wi
       return collector;
     case "window":
       return new Date(windowStart).toISOString();
+    case "srcAs":
+    case "dstAs":
+    case "inIf":
+    case "outIf": {
+      const value = r[g.by];
+      // Records without the value form one group, keyed "none" (the documented key).
+      return value === null || value === undefined ? "none" : String(value);
+    }
   }
 }

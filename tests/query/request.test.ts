@@ -32,6 +32,10 @@ describe("a valid request", () => {
           sport: [53, "1024-65535"],
           dport: ["443"],
           proto: [6, 17],
+          srcAs: [64496, "64500-64511"], // documentation AS numbers (RFC 5398)
+          dstAs: ["65536-65551"],
+          inIf: [3],
+          outIf: ["10-12"],
           collectors: ["edge-1"],
         },
         metric: "packets",
@@ -52,6 +56,10 @@ describe("a valid request", () => {
         sport: [{ low: 53, high: 53 }, { low: 1024, high: 65535 }],
         dport: [{ low: 443, high: 443 }],
         proto: [6, 17],
+        srcAs: [{ low: 64496, high: 64496 }, { low: 64500, high: 64511 }],
+        dstAs: [{ low: 65536, high: 65551 }],
+        inIf: [{ low: 3, high: 3 }],
+        outIf: [{ low: 10, high: 12 }],
         collectors: ["edge-1"],
       },
       metric: "packets",
@@ -65,7 +73,7 @@ describe("a valid request", () => {
     expect(ok(parseEstimateRequest({ from: FROM_MS, to: TO_MS }))).toEqual({
       from: FROM_MS,
       to: TO_MS,
-      where: { src: [], dst: [], srcExclude: [], dstExclude: [], sport: [], dport: [], proto: [], collectors: [] },
+      where: { src: [], dst: [], srcExclude: [], dstExclude: [], sport: [], dport: [], proto: [], srcAs: [], dstAs: [], inIf: [], outIf: [], collectors: [] },
       metric: null,
       groupBy: null,
       top: 10,
@@ -182,7 +190,7 @@ describe("an invalid request is refused with the field and the reason", () => {
     [{ ...DAY, src: ["198.51.100.0/24"] }, "src", /is a filter: put it inside "where"/],
     [{ ...DAY, filter: {} }, "filter", /not a known field \(known: from, to, where, metric, groupBy, prefixLength, top, rank\)/],
     [{ ...DAY, metric: "octets" }, "metric", /one of bytes, packets, flows/],
-    [{ ...DAY, groupBy: "asn" }, "groupBy", /one of src, dst, sport, dport, proto, collector, window/],
+    [{ ...DAY, groupBy: "asn" }, "groupBy", /one of src, dst, sport, dport, proto, srcAs, dstAs, inIf, outIf, collector, window/],
     [{ ...DAY, top: 0 }, "top", /from 1 to 1000/],
     [{ ...DAY, top: 1001 }, "top", /from 1 to 1000/],
     [{ ...DAY, top: 2.5 }, "top", /from 1 to 1000/],
@@ -207,5 +215,39 @@ describe("an invalid request is refused with the field and the reason", () => {
     if (parsed.ok) return;
     expect(parsed.details.map((d) => d.path)).toEqual(["from", "where.src[0]", "where.proto[0]", "top"]);
     expect(parsed.message).toMatch(/^Invalid query: from: must be ISO 8601 .* \(and 3 more\)\.$/);
+  });
+});
+
+describe("AS number and interface filters (fields.ts)", () => {
+  it("take numbers, digits and ranges, in JSON and in a query string alike", () => {
+    // Documentation AS numbers (RFC 5398) and ifIndex values (RFC 2863).
+    const json = ok(parseEstimateRequest({ ...DAY, where: { srcAs: 64496, dstAs: ["64500-64511", "65536"], inIf: ["1-48"], outIf: [49, 50] } }));
+    const query = ok(get("from=2024-05-01T00:00:00Z&to=2024-05-02T00:00:00Z&srcAs=64496&dstAs=64500-64511,65536&inIf=1-48&outIf=49&outIf=50"));
+    expect(query).toEqual(json);
+    expect(json.where.dstAs).toEqual([{ low: 64500, high: 64511 }, { low: 65536, high: 65536 }]);
+    // 4-octet AS numbers run to 2^32 − 1 (RFC 6793 §1), and so do IPFIX's unsigned32 interface indexes (RFC 7012 §3.1.3).
+    expect(ok(parseEstimateRequest({ ...DAY, where: { srcAs: [4294967295], inIf: ["0-4294967295"] } })).where.inIf).toEqual([{ low: 0, high: 4294967295 }]);
+  });
+
+  it.each([
+    [{ srcAs: [4294967296] }, "where.srcAs[0]", /AS numbers stop at 4294967295 \(4-octet AS numbers, RFC 6793\)/],
+    [{ dstAs: ["64496-4294967296"] }, "where.dstAs[0]", /AS numbers stop at 4294967295/],
+    [{ srcAs: [-1] }, "where.srcAs[0]", /^is negative; must be an AS number 0–4294967295/],
+    [{ srcAs: ["-64496"] }, "where.srcAs[0]", /^is negative/],
+    [{ srcAs: ["64511-64496"] }, "where.srcAs[0]", /ends before it starts; did you mean "64496-64511"\?/],
+    [{ srcAs: ["AS64496"] }, "where.srcAs[0]", /must be an AS number 0–4294967295 or a range such as "64496-64511"/],
+    [{ dstAs: [64496.5] }, "where.dstAs[0]", /must be an AS number/],
+    [{ inIf: [4294967296] }, "where.inIf[0]", /interface indexes stop at 4294967295 \(RFC 7012 unsigned32\)/],
+    [{ outIf: ["ge-0/0/1"] }, "where.outIf[0]", /must be an interface index 0–4294967295 or a range/],
+    [{ outIf: { low: 1 } }, "where.outIf", /list of interface indexes or ranges/],
+  ])("%j is refused at %s", (where, path, message) => {
+    const details = issues(parseEstimateRequest({ ...DAY, where }));
+    expect(details.find((d) => d.path === path)?.message, JSON.stringify(details)).toMatch(message);
+  });
+
+  it("names the query-string parameter as written", () => {
+    expect(issues(get("from=2024-05-01&to=2024-05-02&srcAs=64496,4294967296"))).toEqual([
+      { path: "srcAs[1]", message: 'must be an AS number 0–4294967295 or a range such as "64496-64511"; AS numbers stop at 4294967295 (4-octet AS numbers, RFC 6793)' },
+    ]);
   });
 });

@@ -31,7 +31,20 @@ interface TestReservoir {
 function columnsOf(records: TestRecord[]) {
   const rows: KeptRow[] = records.map((r) => ({
     weight: r.weight,
-    record: { src: r.src, dst: r.dst, sport: r.sport, dport: r.dport, proto: r.proto, bytes: BigInt(r.bytes), packets: BigInt(r.packets), start: null },
+    record: {
+      src: r.src,
+      dst: r.dst,
+      sport: r.sport,
+      dport: r.dport,
+      proto: r.proto,
+      bytes: BigInt(r.bytes),
+      packets: BigInt(r.packets),
+      start: null,
+      srcAs: r.srcAs ?? null,
+      dstAs: r.dstAs ?? null,
+      ingressInterface: r.inIf ?? null,
+      egressInterface: r.outIf ?? null,
+    },
   }));
   return toColumns(rows);
 }
@@ -95,6 +108,13 @@ const address = fc.oneof(v4, v6);
 const commonPort = fc.constantFrom(0, 22, 53, 80, 123, 443, 1024, 8080, 65535);
 const port = fc.oneof({ arbitrary: commonPort, weight: 4 }, { arbitrary: fc.integer({ min: 0, max: 65535 }), weight: 1 });
 const protoNumber = fc.constantFrom(1, 6, 17, 47);
+// Documentation AS numbers (RFC 5398, both blocks, the second beyond 2 octets: RFC 6793) and a
+// few ifIndex values (RFC 2863), absent (null: not exported) about a third of the time.
+const asNumber = fc.oneof(fc.integer({ min: 64496, max: 64511 }), fc.integer({ min: 65536, max: 65551 }));
+const ifIndex = fc.oneof(fc.integer({ min: 0, max: 8 }), fc.constant(4294967295));
+const optional = <T>(item: fc.Arbitrary<T>) => fc.oneof({ arbitrary: fc.constant(null), weight: 1 }, { arbitrary: item, weight: 2 });
+const rangeOf = (item: fc.Arbitrary<number>) =>
+  fc.oneof(item, item.map(String), fc.tuple(item, item).map(([a, b]) => `${Math.min(a, b)}-${Math.max(a, b)}`));
 const collectorNames = ["edge-1", "edge-2", "core"];
 const windowStarts = [0, 300_000, 600_000, 900_000];
 
@@ -107,6 +127,10 @@ const record = fc
     proto: protoNumber,
     bytes: fc.integer({ min: 40, max: 5_000_000 }),
     packets: fc.integer({ min: 1, max: 4000 }),
+    srcAs: optional(asNumber),
+    dstAs: optional(asNumber),
+    inIf: optional(ifIndex),
+    outIf: optional(ifIndex),
     byPackets: fc.boolean(),
   })
   .map(({ byPackets, ...r }): TestRecord => ({ ...r, weight: byPackets ? r.packets : r.bytes }));
@@ -143,9 +167,16 @@ const request: fc.Arbitrary<EstimateRequest> = fc
     sport: maybeList(portItem),
     dport: maybeList(portItem),
     proto: maybeList(protoNumber),
+    srcAs: maybeList(rangeOf(asNumber)),
+    dstAs: maybeList(rangeOf(asNumber)),
+    inIf: maybeList(rangeOf(ifIndex)),
+    outIf: maybeList(rangeOf(ifIndex)),
     collectors: maybeList(fc.constantFrom(...collectorNames, "unknown")),
     metric: fc.constantFrom("bytes", "packets", "flows"),
-    groupBy: fc.option(fc.constantFrom("src", "dst", "sport", "dport", "proto", "collector", "window"), { nil: undefined }),
+    groupBy: fc.option(
+      fc.constantFrom("src", "dst", "sport", "dport", "proto", "srcAs", "dstAs", "inIf", "outIf", "collector", "window"),
+      { nil: undefined },
+    ),
     prefixLength: fc.record({ ipv4: fc.integer({ min: 0, max: 32 }), ipv6: fc.integer({ min: 0, max: 128 }) }),
     top: fc.integer({ min: 1, max: 12 }),
   })
@@ -163,6 +194,10 @@ const request: fc.Arbitrary<EstimateRequest> = fc
         sport: r.sport,
         dport: r.dport,
         proto: r.proto,
+        srcAs: r.srcAs,
+        dstAs: r.dstAs,
+        inIf: r.inIf,
+        outIf: r.outIf,
         collectors: r.collectors,
       },
       metric: r.metric,
@@ -175,7 +210,7 @@ const request: fc.Arbitrary<EstimateRequest> = fc
 // ---- tests --------------------------------------------------------------------------------------
 
 describe("scan against a brute force over the same kept records", () => {
-  it("agrees on totals and groups for random queries (filters, excludes, port ranges, IPv6, every group-by)", () => {
+  it("agrees on totals and groups for random queries (filters, excludes, port, AS and interface ranges, absent values, IPv6, every group-by)", () => {
     fc.assert(
       fc.property(fc.array(reservoir, { minLength: 1, maxLength: 8 }), request, (reservoirs, req) => {
         const query = parse(req);
