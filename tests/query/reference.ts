@@ -89,3 +89,17 @@ export function groupKey(q: EstimateQuery, r: PlainRecord, collector: string, wi
     }
   }
 }
+
+/**
+ * Whether an optional value is matched by a filter list as a request writes it (numbers, digit
+ * strings, "low-high" ranges), read here from the text itself rather than from a parsed query:
+ * an empty list matches everything, an absent value matches no item.
+ */
+export function matchesItems(value: number | null | undefined, items: readonly (number | string)[] | undefined): boolean {
+  if (items === undefined || items.length === 0) return true;
+  if (value === null || value === undefined) return false;
+  return items.some((item) => {
+    const [low, high = low] = String(item).split("-").map(Number);
+    return value >= low && value <= high;
+  });
+}
