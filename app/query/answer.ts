@@ -5,10 +5,11 @@
  */
 import type { EstimateSum } from "../sampling/estimate.ts";
 import { toInterval, type IntervalContext, type IntervalMethod } from "../sampling/interval.ts";
-import type { Metric } from "./request.ts";
+import type { Metric, Unit } from "./request.ts";
 import type { ScanResult } from "./scan.ts";
 import { simultaneousInterval, type SelectionJson } from "./selection.ts";
 import type { RollUpDisclosure } from "./rollup-disclosure.ts";
+import { rateJson, type PercentileJson, type RateJson } from "./rate.ts";
 
 /** An estimate with its error: standard error, 95% interval, kept records behind it, rough flag. */
 export interface IntervalJson {
@@ -39,6 +40,13 @@ export interface GroupJson extends IntervalJson {
    * m groups ranked (never narrower than ci95), so all m hold together with at least 95%.
    */
   ci95Simultaneous?: [low: number, high: number];
+  // Both shares are in every answer of buildAnswer; optional only so a hand-made group stays a GroupJson.
+  /** The group's estimate ÷ the question's estimate (the subset asked); null when that is 0. */
+  shareOfQuestion?: number | null;
+  /** The group's estimate ÷ the exact total of the metric over everything in range; null when that is 0. */
+  shareOfAll?: number | null;
+  /** With unit "rate": per window with groupBy window, else the mean over the seconds the range's windows cover. */
+  rate?: RateJson;
 }
 
 /** Exact counters: numbers up to 2^53−1, decimal strings above, where JSON numbers stop being exact. */
@@ -75,6 +83,12 @@ export interface EstimateAnswer extends IntervalJson {
   resolution: ResolutionJson[];
   /** With a group-by: how the top groups were chosen, and why their estimates may be overstated (selection.ts). */
   selection?: SelectionJson;
+  /** "rate" when asked for: then `rate` and `p95` stand beside the totals (rate.ts). */
+  unit?: Unit;
+  /** With unit "rate": the mean rate over the seconds the range's windows cover. */
+  rate?: RateJson;
+  /** With unit "rate" and at least one window: the 95th percentile of the windows' rates (rate.ts). */
+  p95?: PercentileJson;
 }
 
 /**
@@ -207,6 +221,18 @@ export interface AnswerParts {
   context?: IntervalContext;
   /** With a group-by: how the groups were chosen (selection.ts). */
   selection?: SelectionJson | null;
+  /** The groups are windows: each group's rate is over its own window's length. */
+  groupByWindow?: boolean;
+  /**
+   * With unit "rate": the seconds the range's windows cover (rate.ts coveredSeconds), each
+   * window's length by its start for groupBy window, and the p95 of the windows' rates.
+   */
+  rate?: { seconds: number; windowSeconds: ReadonlyMap<number, number>; p95: PercentileJson | null };
+}
+
+/** The exact total of the metric over everything in range, whatever the filter: what `shareOfAll` is a share of. */
+export function exactTotal(metric: Metric, exact: { records: bigint; bytes: bigint; packets: bigint }): number {
+  return Number(metric === "bytes" ? exact.bytes : metric === "packets" ? exact.packets : exact.records);
 }
 
 /**
@@ -217,17 +243,30 @@ export interface AnswerParts {
 function groupJson(key: string, sum: EstimateSum, parts: AnswerParts): GroupJson {
   const { context, selection } = parts;
   const halfContext = selection?.rankedBy === "split" && context ? { ...context, unseenTerm: 2 * context.unseenTerm } : context;
-  const json: GroupJson = { key, ...intervalJson(sum, halfContext) };
+  const all = exactTotal(parts.metric, parts.exact);
+  const question = parts.result.total.estimate;
+  const json: GroupJson = {
+    key,
+    ...intervalJson(sum, halfContext),
+    shareOfQuestion: question > 0 ? sum.estimate / question : null,
+    shareOfAll: all > 0 ? sum.estimate / all : null,
+  };
   if (selection) json.ci95Simultaneous = simultaneousInterval(json, sum.certain, selection.simultaneousZ);
+  if (parts.rate) {
+    const windowSeconds = parts.rate.windowSeconds.get(Date.parse(key));
+    const seconds = parts.groupByWindow && windowSeconds !== undefined ? windowSeconds : parts.rate.seconds;
+    json.rate = rateJson(json, parts.metric, seconds);
+  }
   return json;
 }
 
 /** Assembles the answer, fields in the documented order. */
 export function buildAnswer(parts: AnswerParts): EstimateAnswer {
   const { metric, result, exact } = parts;
+  const total = intervalJson(result.total, parts.context);
   return {
     metric,
-    ...intervalJson(result.total, parts.context),
+    ...total,
     windows: parts.windows,
     collectors: parts.collectors,
     exact: { records: counterJson(exact.records), bytes: counterJson(exact.bytes), packets: counterJson(exact.packets) },
@@ -236,5 +275,16 @@ export function buildAnswer(parts: AnswerParts): EstimateAnswer {
     from: new Date(parts.from).toISOString(),
     to: new Date(parts.to).toISOString(),
     resolution: resolutionJson(parts.spans ?? []),
+    ...(parts.rate ? rateFields(total, parts) : {}),
+  };
+}
+
+/** unit, rate and p95 of an answer asked with unit "rate"; no rate over no seconds. */
+function rateFields(total: IntervalJson, parts: AnswerParts): Pick<EstimateAnswer, "unit" | "rate" | "p95"> {
+  const { seconds, p95 } = parts.rate!;
+  return {
+    unit: "rate",
+    ...(seconds > 0 ? { rate: rateJson(total, parts.metric, seconds) } : {}),
+    ...(p95 ? { p95 } : {}),
   };
 }

@@ -9,6 +9,7 @@ import type { EstimateQuery } from "./request";
 import { compileQuery, type ScanReservoir } from "./scan";
 import { discloseRollUps } from "./rollup-disclosure";
 import { rankGroups } from "./selection";
+import { rateParts } from "./rate-windows";
 import { SnapshotCache } from "./snapshot-cache";
 
 /** What an estimate needs of the server: the database and this node's live reservoirs. */
@@ -116,6 +117,8 @@ export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, 
     from: query.from,
     to: query.to,
     selection,
+    groupByWindow: query.groupBy?.by === "window",
+    ...(query.unit === "rate" ? { rate: rateParts(reservoirs, rows, query, metric, tenant.weightAttribute) } : {}),
     context: {
       unseenTerm,
       cap: Number(metric === "bytes" ? exact.bytes : metric === "packets" ? exact.packets : exact.records),

@@ -26,6 +26,14 @@ export const DEFAULT_TOP = 10;
  */
 export const RANK_MODES = ["estimate", "split"] as const;
 export type RankMode = (typeof RANK_MODES)[number];
+
+/**
+ * How the answer shows volumes: `total` over the range (default), or `rate`, which adds per
+ * second figures beside the totals (bit/s for bytes, packets/s, flows/s) and the 95th
+ * percentile of the windows' rates (rate.ts).
+ */
+export const UNITS = ["total", "rate"] as const;
+export type Unit = (typeof UNITS)[number];
 export const MAX_TOP = 1000;
 /** Longest time range of one query; a year and a bit, so "the same month last year" fits. */
 export const MAX_SPAN_DAYS = 400;
@@ -55,6 +63,8 @@ export interface EstimateRequest {
   top?: number;
   /** With groupBy: how the top groups are chosen; default "estimate". */
   rank?: RankMode;
+  /** "rate" adds rates per second and the windows' 95th percentile beside the totals; default "total". */
+  unit?: Unit;
 }
 
 /** A validated request, ready to compile. Times are epoch ms; windows whose start lies in [from, to) are covered. */
@@ -67,6 +77,8 @@ export interface EstimateQuery {
   groupBy: GroupBy | null;
   top: number;
   rank: RankMode;
+  /** "rate": the answer carries rates beside the totals; absent means "total". */
+  unit?: Unit;
 }
 
 /** One problem with a request: `path` names the field as the client wrote it. */
@@ -206,8 +218,9 @@ const requestObject = z.strictObject(
       .max(MAX_TOP, { error: `must be a whole number from 1 to ${MAX_TOP}` })
       .optional(),
     rank: z.enum(RANK_MODES, { error: `must be one of ${RANK_MODES.join(", ")} (split: rank on one half of the kept records, estimate on the other)` }).optional(),
+    unit: z.enum(UNITS, { error: `must be one of ${UNITS.join(", ")} (rate: bit/s, packets/s or flows/s beside the totals)` }).optional(),
   },
-  { error: "the request must be a JSON object with from, to and optional where, metric, groupBy, prefixLength, top, rank" },
+  { error: "the request must be a JSON object with from, to and optional where, metric, groupBy, prefixLength, top, rank, unit" },
 );
 
 const REQUEST_FIELDS = Object.keys(requestObject.shape);
@@ -245,7 +258,7 @@ export const estimateRequestSchema = requestObject
     } else if (q.groupBy !== undefined) {
       groupBy = { by: q.groupBy };
     }
-    return { from: q.from, to: q.to, where, metric: q.metric ?? null, groupBy, top: q.top ?? DEFAULT_TOP, rank: q.rank ?? "estimate" };
+    return { from: q.from, to: q.to, where, metric: q.metric ?? null, groupBy, top: q.top ?? DEFAULT_TOP, rank: q.rank ?? "estimate", unit: q.unit ?? "total" };
   });
 
 // ---- issues --------------------------------------------------------------------------------
@@ -311,7 +324,7 @@ export function parseEstimateRequest(body: unknown): ParsedQuery {
 
 // ---- the query-string form ------------------------------------------------------------------
 
-const QUERY_SCALARS = ["from", "to", "metric", "groupBy", "prefixLength", "top", "rank"] as const;
+const QUERY_SCALARS = ["from", "to", "metric", "groupBy", "prefixLength", "top", "rank", "unit"] as const;
 /** Filters whose items a query string hands on as numbers (protocols take numbers only). */
 const NUMERIC_LISTS = new Set<string>(FILTER_FIELDS.filter((f) => VALUE_KINDS[f.value].numbers).map((f) => f.name));
 

@@ -1,5 +1,6 @@
 import type { EstimateSum } from "./estimate";
 import { gammaQuantile } from "./gamma";
+import { normalQuantile } from "./normal-quantile";
 
 /**
  * z = Φ⁻¹(0.975), the standard normal quantile for a two-sided 95% interval
@@ -86,11 +87,11 @@ export function roughReason(sum: EstimateSum): string | null {
  *
  * @example gammaInterval(3, 3, 1) // [0.6187…, 8.7673…]: Garwood's limits for 3 events
  */
-export function gammaInterval(y: number, v: number, wM: number): [low: number, high: number] {
-  const low = y > 0 && v > 0 ? (v / y) * gammaQuantile((y * y) / v, 0.025) : y > 0 ? y : 0;
+export function gammaInterval(y: number, v: number, wM: number, alpha = 0.05): [low: number, high: number] {
+  const low = y > 0 && v > 0 ? (v / y) * gammaQuantile((y * y) / v, alpha / 2) : y > 0 ? y : 0;
   const yUp = y + wM;
   const vUp = v + wM * wM;
-  const high = yUp > 0 && vUp > 0 ? (vUp / yUp) * gammaQuantile((yUp * yUp) / vUp, 0.975) : y;
+  const high = yUp > 0 && vUp > 0 ? (vUp / yUp) * gammaQuantile((yUp * yUp) / vUp, 1 - alpha / 2) : y;
   return [low, Math.max(high, y)];
 }
 
@@ -119,6 +120,10 @@ export function gammaInterval(y: number, v: number, wM: number): [low: number, h
  *
  * Upper bounds are never above `context.cap`, lower bounds never below the certain part.
  *
+ * `alpha` other than 0.05 gives the same interval at level 1 − alpha (z = Φ⁻¹(1 − alpha/2),
+ * the gamma quantiles alpha/2 and 1 − alpha/2, the no-match bound −ln(alpha/2)·unseenTerm), for
+ * Bonferroni-adjusted intervals over many windows; `ci95` then holds that interval.
+ *
  * @example
  * toInterval({ estimate: 1000, variance: 2500, certain: 0, kept: 40, uncertain: 40, maxTerm: 10 })
  * // { estimate: 1000, stdError: 50, ci95: [902.0018…, 1097.998…], rough: false, method: "normal", … }
@@ -127,19 +132,23 @@ export function gammaInterval(y: number, v: number, wM: number): [low: number, h
  * // { ci95: [0, 3688.879…], method: "no-match", matched: false, rough: true, … }
  */
 
-export function toInterval(sum: EstimateSum, context: IntervalContext = { unseenTerm: 0 }): Interval {
+export function toInterval(sum: EstimateSum, context: IntervalContext = { unseenTerm: 0 }, alpha = 0.05): Interval {
   const unseen = Math.max(0, context.unseenTerm);
   const cap = context.cap ?? Infinity;
   const certain = sum.certain;
   if (sum.uncertain === 0 && unseen === 0) return result(sum, [sum.estimate, sum.estimate], null, "exact");
-  if (sum.kept === 0) return result(sum, bounded(0, ZERO_COUNT_UPPER * unseen, certain, cap), "no sampled record matched", "no-match");
+  const at95 = alpha === 0.05;
+  if (sum.kept === 0) {
+    const zeroUpper = at95 ? ZERO_COUNT_UPPER : -Math.log(alpha / 2);
+    return result(sum, bounded(0, zeroUpper * unseen, certain, cap), "no sampled record matched", "no-match");
+  }
   const reason = roughReason(sum);
   if (reason === null) {
-    const half = Z95 * Math.sqrt(Math.max(0, sum.variance));
+    const half = (at95 ? Z95 : normalQuantile(1 - alpha / 2)) * Math.sqrt(Math.max(0, sum.variance));
     return result(sum, bounded(sum.estimate - half, sum.estimate + half, certain, cap), null, "normal");
   }
   const y = Math.max(0, sum.estimate - certain);
-  const [low, high] = gammaInterval(y, Math.max(0, sum.variance), Math.max(sum.maxTerm, unseen));
+  const [low, high] = gammaInterval(y, Math.max(0, sum.variance), Math.max(sum.maxTerm, unseen), alpha);
   return result(sum, bounded(certain + low, certain + high, certain, cap), reason, "gamma");
 }
 

@@ -66,6 +66,7 @@ describe("a valid request", () => {
       groupBy: { by: "src", prefixLength: { ipv4: 16, ipv6: 48 } },
       top: 25,
       rank: "split",
+      unit: "total",
     });
   });
 
@@ -78,6 +79,7 @@ describe("a valid request", () => {
       groupBy: null,
       top: 10,
       rank: "estimate",
+      unit: "total",
     });
     // /24 per IPv4 network and /64 per IPv6 subnet (RFC 4291 §2.5.4: 64-bit interface ids).
     expect(ok(parseEstimateRequest({ ...DAY, groupBy: "dst" })).groupBy).toEqual({ by: "dst", prefixLength: { ipv4: 24, ipv6: 64 } });
@@ -188,7 +190,7 @@ describe("an invalid request is refused with the field and the reason", () => {
     [{ ...DAY, where: { asn: [64496] } }, "where.asn", /not a known filter \(known: src, dst, srcExclude/],
     [{ ...DAY, where: "src=198.51.100.0/24" }, "where", /object of filters/],
     [{ ...DAY, src: ["198.51.100.0/24"] }, "src", /is a filter: put it inside "where"/],
-    [{ ...DAY, filter: {} }, "filter", /not a known field \(known: from, to, where, metric, groupBy, prefixLength, top, rank\)/],
+    [{ ...DAY, filter: {} }, "filter", /not a known field \(known: from, to, where, metric, groupBy, prefixLength, top, rank(, allowOverlap)?, unit\)/],
     [{ ...DAY, metric: "octets" }, "metric", /one of bytes, packets, flows/],
     [{ ...DAY, groupBy: "asn" }, "groupBy", /one of src, dst, sport, dport, proto, srcAs, dstAs, inIf, outIf, collector, window/],
     [{ ...DAY, top: 0 }, "top", /from 1 to 1000/],
