@@ -269,7 +269,7 @@ function KeyTable({ tenantSlug, keys }: { tenantSlug: string; keys: KeyRow[] }) 
   const revoking = navigation.state === "submitting" && navigation.formData?.get("intent") === "revoke";
   return (
     <div className="overflow-x-auto">
-      <table className="w-full text-left text-sm">
+      <table className="sticky-first w-full text-left text-sm">
         <caption className="sr-only">API keys of this tenant, newest first</caption>
         <thead className="border-b border-river-700 text-xs tracking-wide text-river-300 uppercase">
           <tr>

@@ -121,7 +121,7 @@ function LedgerTable({ ledger, base, filter }: { ledger: LedgerPage; base: strin
     <>
       {/* The padding keeps focus rings at the table's edges from being clipped by the scroll box. */}
       <div className="-m-1.5 overflow-x-auto p-1.5">
-        <table className="w-full text-left text-sm">
+        <table className="sticky-first w-full text-left text-sm">
           <caption className="sr-only">Ledger entries, newest first</caption>
           <thead className="border-b border-river-700 text-xs tracking-wide text-river-300 uppercase">
             <tr>

@@ -167,7 +167,7 @@ export default function People() {
           {removing ? <ConfirmRemoval base={base} tenantName={tenant.name} member={removing} self={removing.userId === me} lastAdmin={removing.role === "admin" && admins <= 1} /> : null}
           {/* The padding keeps the focus rings of edge buttons from being clipped by the scroll box. */}
           <div className="-m-1.5 overflow-x-auto p-1.5">
-            <table className="w-full text-left text-sm">
+            <table className="sticky-first w-full text-left text-sm">
               <caption className="sr-only">Members of {tenant.name}, admins first</caption>
               <thead className="border-b border-river-700 text-xs tracking-wide text-river-300 uppercase">
                 <tr>
@@ -261,7 +261,7 @@ export default function People() {
               <EmptyState title="No invitations waiting">Invitations appear here until they are accepted, revoked or expire (after 7 days).</EmptyState>
             ) : (
               <div className="-m-1.5 overflow-x-auto p-1.5">
-                <table className="w-full text-left text-sm">
+                <table className="sticky-first w-full text-left text-sm">
                   <caption className="sr-only">Invitations not yet accepted, soonest to expire first</caption>
                   <thead className="border-b border-river-700 text-xs tracking-wide text-river-300 uppercase">
                     <tr>

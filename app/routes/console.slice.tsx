@@ -56,6 +56,8 @@ export default function Slice() {
   // Replaces the entry rather than pushing one per chip; the search is written as sliceSearch
   // spells it (setSearchParams would percent-encode every "/" and ":" of a prefix).
   const update = (next: SliceState) => navigate({ search: sliceSearch(next) }, { replace: true, preventScrollReset: true });
+  // Text a box holds but could not apply: the question is not asked until it is fixed or cleared.
+  const [held, setHeld] = useState<string[]>([]);
 
   return (
     <>
@@ -63,8 +65,8 @@ export default function Slice() {
         title="Slice"
         lead={
           <>
-            Estimate any subset of {tenant.name}'s traffic from its priority samples: choose the records on the left, read the estimate with its 95% interval on
-            the right. The question is kept in the page address, so a copied link shows the same slice.
+            Estimate any subset of {tenant.name}'s traffic from its priority samples: choose the records in the Question panel and read the estimate with its 95%
+            interval in the answer beside it (below it on a narrow screen). The question is kept in the page address, so a copied link shows the same slice.
           </>
         }
         actions={hasData ? <CopyLink /> : null}
@@ -87,14 +89,29 @@ export default function Slice() {
                 </ul>
               </div>
             ) : null}
-            <SliceForm state={state} onChange={update} collectors={collectors} weightAttribute={tenant.weightAttribute} />
+            <SliceForm state={state} onChange={update} collectors={collectors} weightAttribute={tenant.weightAttribute} onHold={setHeld} />
           </Panel>
           <section aria-label="Answer" className="min-w-0">
-            <SliceResults state={state} tenant={tenant.slug} windowSeconds={tenant.windowSeconds} />
+            {held.length > 0 ? <NotAsked problems={held} /> : <SliceResults state={state} tenant={tenant.slug} windowSeconds={tenant.windowSeconds} />}
           </section>
         </div>
       )}
     </>
+  );
+}
+
+/** In place of the answer while a box holds text that was refused, so no answer reads as if it included it. */
+function NotAsked({ problems }: { problems: string[] }) {
+  return (
+    <div role="status" data-held="true" className="rounded-lg border border-red-400/50 bg-red-950/30 px-4 py-3 text-sm text-red-100">
+      <p className="font-medium">Not asked yet: the question holds text that could not be applied.</p>
+      <ul className="mt-1 list-inside list-disc text-red-200">
+        {problems.map((p) => (
+          <li key={p}>{p}</li>
+        ))}
+      </ul>
+      <p className="mt-2 text-red-200">Fix the text or clear the box; the answer appears as soon as every box is applied.</p>
+    </div>
   );
 }
 

@@ -1,4 +1,5 @@
-import { Form, NavLink, Outlet, useLoaderData, useNavigate } from "react-router";
+import { useEffect, useRef } from "react";
+import { Form, NavLink, Outlet, useLoaderData, useLocation, useNavigate } from "react-router";
 import { requireMember } from "~/auth/guards.server";
 import { membershipsOf, roleAtLeast } from "~/auth/users.server";
 // Only the loader uses the .server imports above; the component gets plain data, so no
@@ -35,10 +36,30 @@ export async function loader({ request, context, params }: Route.LoaderArgs) {
 export default function Console() {
   const { user, tenant, role, sections, tenants, fakeServices } = useLoaderData<typeof loader>();
   const navigate = useNavigate();
+  const location = useLocation();
+  const current = sections.find((s) => location.pathname.startsWith(`/t/${tenant.slug}/${s.path}`));
+  // The phone menu closes once a link in it has taken the reader to another page.
+  const menu = useRef<HTMLDetailsElement>(null);
+  useEffect(() => {
+    if (menu.current) menu.current.open = false;
+  }, [location.pathname]);
+  const links = (className: (active: boolean) => string) =>
+    sections.map((s) => (
+      <NavLink key={s.path} to={`/t/${tenant.slug}/${s.path}`} title={s.hint} className={({ isActive }) => className(isActive)}>
+        {s.label}
+      </NavLink>
+    ));
+  const signOut = (
+    <Form method="post" action="/signout">
+      <button type="submit" className="rounded-md border border-river-700 px-2.5 py-1 text-river-200 hover:border-river-500">
+        Sign out
+      </button>
+    </Form>
+  );
   return (
     <div className="flex min-h-screen flex-col">
       <header className="border-b border-river-800 bg-river-950">
-        <div className="mx-auto flex max-w-7xl flex-wrap items-center gap-x-6 gap-y-2 px-6 py-3">
+        <div className="mx-auto flex max-w-7xl flex-wrap items-center gap-x-6 gap-y-2 px-4 py-3 sm:px-6">
           <a href="/" className="flex items-center gap-2 font-semibold text-river-50">
             <svg aria-hidden="true" viewBox="0 0 32 20" className="h-5 w-8">
               <path d="M0 6 Q8 2 14 6 L14 18 L0 18 Z" fill="#467472" />
@@ -47,10 +68,10 @@ export default function Console() {
             </svg>
             Weir
           </a>
-          <label className="flex items-center gap-2 text-sm text-river-300">
+          <label className="flex min-w-0 items-center gap-2 text-sm text-river-300">
             <span className="sr-only">Tenant</span>
             <select
-              className="rounded-md border border-river-700 bg-river-900 px-2 py-1 text-river-50"
+              className="max-w-[11rem] truncate rounded-md border border-river-700 bg-river-900 px-2 py-1 text-river-50 sm:max-w-none"
               value={tenant.slug}
               onChange={(e) => navigate(`/t/${e.target.value}/slice`)}
             >
@@ -61,38 +82,46 @@ export default function Console() {
               ))}
             </select>
           </label>
-          <nav aria-label="Console sections" className="flex flex-wrap gap-1">
-            {sections.map((s) => (
-              <NavLink
-                key={s.path}
-                to={`/t/${tenant.slug}/${s.path}`}
-                title={s.hint}
-                className={({ isActive }) =>
-                  `rounded-md px-3 py-1.5 text-sm ${isActive ? "bg-river-800 text-sand-200" : "text-river-200 hover:bg-river-900 hover:text-river-50"}`
-                }
-              >
-                {s.label}
-              </NavLink>
-            ))}
+          {/* Wide screens: the sections in a row. */}
+          <nav aria-label="Console sections" className="hidden flex-wrap gap-1 lg:flex">
+            {links((active) => `rounded-md px-3 py-1.5 text-sm ${active ? "bg-river-800 text-sand-200" : "text-river-200 hover:bg-river-900 hover:text-river-50"}`)}
           </nav>
-          <div className="ml-auto flex items-center gap-3 text-sm text-river-300">
+          <div className="ml-auto hidden items-center gap-3 text-sm text-river-300 lg:flex">
             <span>
               <span className="text-river-100">{user.login ?? user.email}</span> · {role}
             </span>
-            <Form method="post" action="/signout">
-              <button type="submit" className="rounded-md border border-river-700 px-2.5 py-1 text-river-200 hover:border-river-500">
-                Sign out
-              </button>
-            </Form>
+            {signOut}
           </div>
+          {/* Narrow screens: a menu (a disclosure, so it opens even before the page's script runs). */}
+          <details ref={menu} className="relative ml-auto lg:hidden">
+            <summary className="flex cursor-pointer list-none items-center gap-2 rounded-md border border-river-700 px-3 py-1.5 text-sm text-river-100 hover:border-river-500 [&::-webkit-details-marker]:hidden">
+              <svg aria-hidden="true" viewBox="0 0 16 12" className="h-3 w-4 fill-current">
+                <rect width="16" height="2" />
+                <rect y="5" width="16" height="2" />
+                <rect y="10" width="16" height="2" />
+              </svg>
+              Menu{current ? <span className="text-sand-200">· {current.label}</span> : null}
+            </summary>
+            <div className="absolute right-0 z-30 mt-2 flex w-64 max-w-[calc(100vw-2rem)] flex-col gap-3 rounded-lg border border-river-700 bg-river-950 p-2 shadow-xl">
+              <nav aria-label="Console sections" className="flex flex-col">
+                {links((active) => `rounded-md px-3 py-2 text-sm ${active ? "bg-river-800 text-sand-200" : "text-river-200 hover:bg-river-900 hover:text-river-50"}`)}
+              </nav>
+              <div className="flex items-center justify-between gap-3 border-t border-river-800 px-3 pt-3 pb-1 text-sm text-river-300">
+                <span className="min-w-0 truncate">
+                  <span className="text-river-100">{user.login ?? user.email}</span> · {role}
+                </span>
+                {signOut}
+              </div>
+            </div>
+          </details>
         </div>
         {fakeServices ? (
           <p className="bg-sand-950 px-6 py-1 text-center text-xs text-sand-200">
-            Development mode: sign-in and e-mail go to local fakes started by Weir; they do not exist in a production build.
+            Development or demo: sign-in and e-mail go to local fakes started by Weir (invented accounts, caught mail); they never run beside a real GitHub app or mail relay.
           </p>
         ) : null}
       </header>
-      <main className="mx-auto w-full max-w-7xl flex-1 px-6 py-8">
+      <main className="mx-auto w-full max-w-7xl flex-1 px-4 py-6 sm:px-6 sm:py-8">
         <Outlet />
       </main>
     </div>

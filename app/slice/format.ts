@@ -8,7 +8,7 @@
  */
 import type { Counter } from "../query/answer.ts";
 import type { IntervalMethod } from "../sampling/interval.ts";
-import type { Metric } from "../query/request.ts";
+import type { GroupByKind, Metric } from "../query/request.ts";
 
 const BYTE_UNITS = ["B", "KB", "MB", "GB", "TB", "PB", "EB", "ZB"];
 const COUNT_UNITS = ["", "k", "M", "G", "T", "P", "E"];
@@ -103,14 +103,45 @@ export function formatPercent(ratio: number): string {
 }
 
 /**
- * An instant in UTC to the minute, as the console writes times.
+ * An instant in UTC to the minute (or the second, where order within a minute matters, as
+ * in the Ledger), 24-hour, as the console writes times everywhere.
  *
  * @example formatUtc(Date.UTC(2024, 4, 1, 2, 5)) // "2024-05-01 02:05 UTC"
+ * @example formatUtc(Date.UTC(2024, 4, 1, 14, 5, 9), { seconds: true }) // "2024-05-01 14:05:09 UTC"
  */
-export function formatUtc(ms: number | string): string {
+export function formatUtc(ms: number | string, options: { seconds?: boolean } = {}): string {
   const d = new Date(ms);
   if (Number.isNaN(d.getTime())) return String(ms);
-  return `${d.toISOString().slice(0, 16).replace("T", " ")} UTC`;
+  return `${d.toISOString().slice(0, options.seconds ? 19 : 16).replace("T", " ")} UTC`;
+}
+
+/**
+ * An instant as the console's time inputs hold it: UTC, 24-hour, to the minute, no zone
+ * suffix (the label says UTC). The browser's own date-time inputs follow its locale, which
+ * may show a 12-hour clock, so the console uses text inputs in this form.
+ *
+ * @example formatUtcMinute(Date.UTC(2024, 4, 1, 14, 5)) // "2024-05-01 14:05"
+ */
+export function formatUtcMinute(ms: number): string {
+  return new Date(ms).toISOString().slice(0, 16).replace("T", " ");
+}
+
+/** The pattern attribute of a UTC time input (HTML's pattern: the whole value must match). */
+export const UTC_MINUTE_PATTERN = "\\d{4}-\\d{2}-\\d{2}[ T]\\d{2}:\\d{2}";
+
+/**
+ * "YYYY-MM-DD HH:MM" (or with a "T", as ISO 8601 writes it) in UTC as epoch ms; null for any
+ * other text, and for times that do not exist (2024-02-30, 24:00).
+ *
+ * @example parseUtcMinute("2024-05-01 14:05") // Date.UTC(2024, 4, 1, 14, 5)
+ * @example parseUtcMinute("2024-02-30 10:00") // null
+ */
+export function parseUtcMinute(text: string): number | null {
+  const m = /^(\d{4}-\d{2}-\d{2})[ T](\d{2}:\d{2})$/.exec(text.trim());
+  if (!m) return null;
+  const ms = Date.parse(`${m[1]}T${m[2]}:00Z`);
+  // Date.parse rolls 2024-02-31 over into March; only a time that reads back unchanged exists.
+  return Number.isFinite(ms) && formatUtcMinute(ms) === `${m[1]} ${m[2]}` ? ms : null;
 }
 
 /** A counter of the API (number, or decimal text above 2^53) as a float for ratios. */
@@ -154,5 +185,13 @@ export function intervalText(e: { estimate: number; ci95: [number, number]; meth
   return formatMetricRange(low, high, metric);
 }
 
-/** What each group-by kind is called in the form and in result headings (fields.ts). */
-export { GROUP_LABELS } from "../query/fields.ts";
+/** What each group-by kind is called in the form and in result headings. */
+export const GROUP_LABELS: Record<GroupByKind, string> = {
+  src: "Source prefix",
+  dst: "Destination prefix",
+  sport: "Source port",
+  dport: "Destination port",
+  proto: "Protocol",
+  collector: "Collector",
+  window: "Window start (UTC)",
+};

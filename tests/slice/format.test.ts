@@ -1,5 +1,5 @@
 import { describe, expect, test } from "vitest";
-import { axisValue, exactMetric, formatBytes, formatCount, formatMetric, formatMetricRange, formatPercent, formatUtc, intervalText, methodNote } from "~/slice/format";
+import { axisValue, exactMetric, formatBytes, formatCount, formatMetric, formatMetricRange, formatPercent, formatUtc, formatUtcMinute, intervalText, methodNote, parseUtcMinute } from "~/slice/format";
 
 describe("numbers as the console shows them", () => {
   test("bytes in decimal units, three significant figures (common practice in networking: 1 KB = 1000 B)", () => {
@@ -45,6 +45,22 @@ describe("numbers as the console shows them", () => {
     expect(formatPercent(Number.NaN)).toBe("—");
     expect(formatUtc(Date.UTC(2024, 4, 1, 2, 5))).toBe("2024-05-01 02:05 UTC");
     expect(formatUtc("2024-05-01T02:05:00.000Z")).toBe("2024-05-01 02:05 UTC");
+    // The Ledger's precision, same form: 24-hour clock (ISO 8601 §4.2.2 time of day), never "2:05 PM".
+    expect(formatUtc(Date.UTC(2024, 4, 1, 14, 5, 9), { seconds: true })).toBe("2024-05-01 14:05:09 UTC");
+  });
+
+  test("time inputs read 24-hour UTC text and refuse times that do not exist", () => {
+    expect(formatUtcMinute(Date.UTC(2024, 4, 1, 14, 5))).toBe("2024-05-01 14:05");
+    expect(parseUtcMinute("2024-05-01 14:05")).toBe(Date.UTC(2024, 4, 1, 14, 5));
+    // ISO 8601's "T" separator is accepted as well as the space RFC 3339 §5.6 (NOTE) allows.
+    expect(parseUtcMinute("2024-05-01T14:05")).toBe(Date.UTC(2024, 4, 1, 14, 5));
+    // Days per month and hours 00–23 (RFC 3339 §5.7; 2024 is a leap year).
+    expect(parseUtcMinute("2024-02-29 00:00")).toBe(Date.UTC(2024, 1, 29));
+    expect(parseUtcMinute("2023-02-29 00:00")).toBeNull();
+    expect(parseUtcMinute("2024-04-31 10:00")).toBeNull();
+    expect(parseUtcMinute("2024-05-01 24:00")).toBeNull();
+    expect(parseUtcMinute("2024-05-01 2:05 PM")).toBeNull();
+    expect(parseUtcMinute("05/01/2024 14:05")).toBeNull();
   });
 });
 

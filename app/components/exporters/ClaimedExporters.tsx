@@ -19,7 +19,7 @@ export function ClaimedExportersTable({ exporters, now }: { exporters: ClaimedEx
   return (
     <div className="flex flex-col gap-3">
       <div className="overflow-x-auto">
-        <table className="w-full min-w-[72rem] text-sm">
+        <table className="sticky-first w-full min-w-[72rem] text-sm">
           <caption className="sr-only">
             Exporters feeding this tenant's collectors: records per second, records decoded, records lost in transport, data sets that waited for a template,
             malformed messages, unusable records, announced sampling, templates and enterprise elements, first and last seen

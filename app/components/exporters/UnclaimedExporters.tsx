@@ -26,7 +26,7 @@ export function UnclaimedExportersTable({
   const busy = navigation.state === "submitting" && navigation.formData?.get("intent") === "claim" ? navigation.formData : undefined;
   return (
     <div className="overflow-x-auto">
-      <table className="w-full min-w-[60rem] text-sm">
+      <table className="sticky-first w-full min-w-[60rem] text-sm">
         <caption className="sr-only">Sources without a claim: address, observation domain, transport, messages, records, first and last seen, and a claim form</caption>
         <thead className="border-b border-river-700 text-left text-xs text-river-300">
           <tr>

@@ -33,7 +33,7 @@ export function IntakeTable({ snapshot }: { snapshot: IntakeSnapshot }) {
         ) : null}
       </p>
       <div className="overflow-x-auto">
-        <table className="w-full min-w-[60rem] text-sm">
+        <table className="sticky-first w-full min-w-[60rem] text-sm">
           <caption className="sr-only">
             Ingest health per collector: records per second over the last {snapshot.rateSeconds} s, exact bytes of the last {windows.length} windows, reservoir
             fill and threshold τ of the open window, and when the collector was last seen

@@ -1,4 +1,4 @@
-import { useId, useRef, useState, type ClipboardEvent, type KeyboardEvent, type ReactNode } from "react";
+import { createContext, useContext, useEffect, useId, useRef, useState, type ClipboardEvent, type KeyboardEvent, type ReactNode } from "react";
 import { inputClass } from "~/components/ui";
 import type { ChipCheck } from "~/slice/chips";
 
@@ -8,6 +8,7 @@ interface ChipInputProps {
   onChange(values: string[]): void;
   /** Checks typed text on every keystroke; only accepted text becomes a chip, in its normal form. */
   check(text: string): ChipCheck;
+  /** What to type, in words ("add a CIDR, e.g. …"): shown muted and in italics, so it never reads as a value. */
   placeholder?: string;
   hint?: ReactNode;
   /** How a chip reads (e.g. "TCP (6)" for "6"). */
@@ -16,16 +17,50 @@ interface ChipInputProps {
 }
 
 /**
- * A list of values typed one at a time: Enter or a comma turns valid text into a chip, a
- * pasted comma-separated list becomes several, each chip has its own remove button. The
- * reason text is refused is shown while typing, as the API would word it. Chips that came
- * from a hand-edited link and do not pass are kept, marked, and explained.
+ * Where chip inputs report text they hold but did not apply: told (label, reason) whenever a
+ * box, out of focus, still holds text that did not become a chip (it was refused), and
+ * (label, null) once it holds none. The Slice form provides it and does not ask the question
+ * while any box holds such text.
  */
-export function ChipInput({ label, values, onChange, check, placeholder, hint, display = (v) => v, max = 256 }: ChipInputProps) {
+export const PendingTextContext = createContext<((label: string, problem: string | null) => void) | null>(null);
+
+/**
+ * The latest value a component sent up, until the prop it comes back as changes: a parent
+ * that keeps its state in the URL answers a change only after a navigation, and a second
+ * change made before then (a blur, then a click) must build on the first, not on the old prop.
+ */
+export function useSentValue<T>(prop: T, key: (value: T) => unknown = (v) => v): { value: T } {
+  const ref = useRef({ key: key(prop), value: prop });
+  const k = key(prop);
+  if (!Object.is(ref.current.key, k)) {
+    ref.current.key = k;
+    ref.current.value = prop;
+  }
+  return ref.current;
+}
+
+/**
+ * A list of values typed one at a time: Enter, a comma, leaving the box (blur) or submitting
+ * its form turns valid text into a chip, so nothing typed is silently left out of the
+ * question; a pasted comma-separated list becomes several, each chip has its own remove
+ * button. The reason text is refused is shown while typing, as the API would word it, and in
+ * red once it was applied and refused. Chips that came from a hand-edited link and do not
+ * pass are kept, marked, and explained.
+ */
+export function ChipInput({ label, values: shown, onChange: sendUp, check, placeholder, hint, display = (v) => v, max = 256 }: ChipInputProps) {
+  // Handlers read sent.value when they run: a blur may have added a chip since this render.
+  const sent = useSentValue(shown, (v) => v.join("\n"));
+  const values = sent.value;
+  const onChange = (next: string[]) => {
+    sent.value = next;
+    sendUp(next);
+  };
+  const report = useContext(PendingTextContext);
   const id = useId();
   const inputRef = useRef<HTMLInputElement>(null);
   const [text, setText] = useState("");
   const [attempted, setAttempted] = useState(false);
+  const [focused, setFocused] = useState(false);
 
   const trimmed = text.trim();
   const checked = trimmed === "" ? null : check(trimmed);
@@ -45,7 +80,8 @@ export function ChipInput({ label, values, onChange, check, placeholder, hint, d
 
   /** Adds every valid part of `parts`; returns the parts that were not added. */
   function addParts(parts: string[]): string[] {
-    const next = [...values];
+    const before = sent.value;
+    const next = [...before];
     const left: string[] = [];
     for (const part of parts) {
       const p = part.trim();
@@ -57,7 +93,7 @@ export function ChipInput({ label, values, onChange, check, placeholder, hint, d
         left.push(p);
       }
     }
-    if (next.length !== values.length) onChange(next);
+    if (next.length !== before.length) onChange(next);
     return left;
   }
 
@@ -71,6 +107,26 @@ export function ChipInput({ label, values, onChange, check, placeholder, hint, d
       setAttempted(true);
     }
   }
+
+  // The form's submit applies the text too; the listener calls the latest commit, not the first render's.
+  const commitRef = useRef(commit);
+  commitRef.current = commit;
+  useEffect(() => {
+    const form = inputRef.current?.form;
+    if (!form) return;
+    const onSubmit = () => commitRef.current();
+    form.addEventListener("submit", onSubmit);
+    return () => form.removeEventListener("submit", onSubmit);
+  }, []);
+
+  // Text left in the box after it lost focus was refused: the form must not ask without it.
+  const pending = !focused && trimmed !== "" ? (checked && !checked.ok ? checked.message : full ? message : `${trimmed} was not added.`) : null;
+  const pendingProblem = pending === null ? null : `${label}: ${pending}`;
+  useEffect(() => {
+    report?.(label, pendingProblem);
+  }, [report, label, pendingProblem]);
+  // A box that goes away (a section closed) must not keep the question held.
+  useEffect(() => () => report?.(label, null), [report, label]);
 
   function onKeyDown(event: KeyboardEvent<HTMLInputElement>) {
     if (event.key === "Enter" || event.key === ",") {
@@ -89,7 +145,7 @@ export function ChipInput({ label, values, onChange, check, placeholder, hint, d
   }
 
   function remove(value: string) {
-    onChange(values.filter((v) => v !== value));
+    onChange(sent.value.filter((v) => v !== value));
     inputRef.current?.focus();
   }
 
@@ -143,9 +199,14 @@ export function ChipInput({ label, values, onChange, check, placeholder, hint, d
           setText(e.target.value);
           setAttempted(false);
         }}
+        onFocus={() => setFocused(true)}
+        onBlur={() => {
+          setFocused(false);
+          commit();
+        }}
         onKeyDown={onKeyDown}
         onPaste={onPaste}
-        className={`${inputClass} font-mono`}
+        className={`${inputClass} font-mono placeholder:font-sans placeholder:italic`}
       />
       {/* Always rendered (empty, it takes no room), so screen readers hear each new reason as it appears. */}
       <p id={messageId} aria-live="polite" className={`text-xs [&:not(:empty)]:mt-1 ${tone}`}>

@@ -127,7 +127,7 @@ export function GroupsTable({ answer, by, state }: { answer: EstimateAnswer; by:
         <p className="text-sm text-river-300">No group has kept records in this subset.</p>
       ) : (
         <div className="overflow-x-auto">
-          <table className="w-full min-w-[44rem] text-sm">
+          <table className="sticky-first w-full min-w-[44rem] text-sm">
             <caption className="sr-only">
               Estimates per {GROUP_LABELS[by].toLowerCase()}, largest first, with 95% intervals
             </caption>

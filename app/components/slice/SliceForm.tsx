@@ -1,10 +1,10 @@
-import { useEffect, useId, useState, type ReactNode } from "react";
+import { useCallback, useEffect, useId, useRef, useState, type KeyboardEvent, type ReactNode } from "react";
 import { Button, inputClass } from "~/components/ui";
 import { DEFAULT_TOP, GROUP_BY, MAX_TOP, METRICS, type GroupByKind, type Metric } from "~/query/request";
 import { checkPortChip, checkPrefixChip, checkProtocolChip, COMMON_PROTOCOLS, protocolLabel } from "~/slice/chips";
 import { RANGE_PRESETS, resolveRange, type RangePreset, type SliceRange, type SliceState } from "~/slice/query-state";
-import { GROUP_LABELS } from "~/slice/format";
-import { ChipInput } from "./ChipInput";
+import { formatUtcMinute, GROUP_LABELS, parseUtcMinute, UTC_MINUTE_PATTERN } from "~/slice/format";
+import { ChipInput, PendingTextContext, useSentValue } from "./ChipInput";
 import { SplitRankField } from "./Selection";
 
 
@@ -23,33 +23,70 @@ interface SliceFormProps {
   onChange(next: SliceState): void;
   collectors: CollectorChoice[];
   weightAttribute: "bytes" | "packets";
+  /**
+   * Told, on every change, what the boxes hold but did not apply (text that was refused, one
+   * line per box): while the list is not empty the page must not ask the question, since the
+   * question on screen is not the one the form would send.
+   */
+  onHold?(problems: string[]): void;
 }
 
-/** The question builder. Every change is applied at once (the page keeps it in the URL). */
-export function SliceForm({ state, onChange, collectors, weightAttribute }: SliceFormProps) {
-  const set = <K extends keyof SliceState>(key: K, value: SliceState[K]) => onChange({ ...state, [key]: value });
-  const setList = (field: keyof SliceState["lists"], values: string[]) => onChange({ ...state, lists: { ...state.lists, [field]: values } });
+/**
+ * The question builder. Every change is applied at once (the page keeps it in the URL); text
+ * typed into a box is applied on Enter, when focus leaves the box, or when the form is
+ * submitted, so clicking a range or a group-by never asks without it.
+ */
+export function SliceForm({ state, onChange, collectors, weightAttribute, onHold }: SliceFormProps) {
+  // Changes build on the last state sent, not on the prop: the URL catches up after a navigation,
+  // and a blur that adds a chip is followed at once by the click that caused it.
+  const sent = useSentValue(state);
+  const send = (next: SliceState) => {
+    sent.value = next;
+    onChange(next);
+  };
+  const set = <K extends keyof SliceState>(key: K, value: SliceState[K]) => send({ ...sent.value, [key]: value });
+  type Lists = SliceState["lists"];
+  const setList = (field: keyof Lists, values: string[] | ((current: string[]) => string[])) => {
+    const current = sent.value;
+    send({ ...current, lists: { ...current.lists, [field]: typeof values === "function" ? values(current.lists[field]) : values } });
+  };
+
+  const [held, setHeld] = useState<Record<string, string>>({});
+  const report = useCallback((label: string, problem: string | null) => {
+    setHeld((h) => {
+      if ((h[label] ?? null) === problem) return h;
+      const next = { ...h };
+      if (problem === null) delete next[label];
+      else next[label] = problem;
+      return next;
+    });
+  }, []);
+  // Told on a change of what is held only; onHold may be a new closure on every render.
+  const onHoldRef = useRef(onHold);
+  onHoldRef.current = onHold;
+  useEffect(() => onHoldRef.current?.(Object.values(held)), [held]);
 
   const commonNumbers: string[] = COMMON_PROTOCOLS.map((p) => String(p.number));
   const otherProtocols = state.lists.proto.filter((p) => !commonNumbers.includes(p));
 
   return (
+    <PendingTextContext.Provider value={report}>
     <form className="flex flex-col gap-5" onSubmit={(e) => e.preventDefault()} aria-label="Slice question">
       <TimeRange range={state.range} onChange={(range) => set("range", range)} />
 
       <Section title="Source">
-        <ChipInput label="Source in" values={state.lists.src} onChange={(v) => setList("src", v)} check={checkPrefixChip} placeholder="198.51.100.0/24" />
-        <ChipInput label="Source not in" values={state.lists.srcExclude} onChange={(v) => setList("srcExclude", v)} check={checkPrefixChip} placeholder="2001:db8:ff::/48" />
+        <ChipInput label="Source in" values={state.lists.src} onChange={(v) => setList("src", v)} check={checkPrefixChip} placeholder="add a CIDR, e.g. 198.51.100.0/24" />
+        <ChipInput label="Source not in" values={state.lists.srcExclude} onChange={(v) => setList("srcExclude", v)} check={checkPrefixChip} placeholder="add a CIDR, e.g. 2001:db8:ff::/48" />
       </Section>
 
       <Section title="Destination">
-        <ChipInput label="Destination in" values={state.lists.dst} onChange={(v) => setList("dst", v)} check={checkPrefixChip} placeholder="203.0.113.0/24" />
-        <ChipInput label="Destination not in" values={state.lists.dstExclude} onChange={(v) => setList("dstExclude", v)} check={checkPrefixChip} placeholder="192.0.2.0/25" />
+        <ChipInput label="Destination in" values={state.lists.dst} onChange={(v) => setList("dst", v)} check={checkPrefixChip} placeholder="add a CIDR, e.g. 203.0.113.0/24" />
+        <ChipInput label="Destination not in" values={state.lists.dstExclude} onChange={(v) => setList("dstExclude", v)} check={checkPrefixChip} placeholder="add a CIDR, e.g. 192.0.2.0/25" />
       </Section>
 
       <Section title="Ports and protocols">
-        <ChipInput label="Source ports" values={state.lists.sport} onChange={(v) => setList("sport", v)} check={checkPortChip} placeholder="1024-65535" />
-        <ChipInput label="Destination ports" values={state.lists.dport} onChange={(v) => setList("dport", v)} check={checkPortChip} placeholder="443" />
+        <ChipInput label="Source ports" values={state.lists.sport} onChange={(v) => setList("sport", v)} check={checkPortChip} placeholder="add a port or range, e.g. 1024-65535" />
+        <ChipInput label="Destination ports" values={state.lists.dport} onChange={(v) => setList("dport", v)} check={checkPortChip} placeholder="add a port or range, e.g. 443" />
         <fieldset className="flex flex-col gap-1.5">
           <legend className="mb-1.5 text-sm font-medium text-river-100">Protocols</legend>
           <div className="flex flex-wrap gap-x-4 gap-y-1">
@@ -61,7 +98,7 @@ export function SliceForm({ state, onChange, collectors, weightAttribute }: Slic
                   <input
                     type="checkbox"
                     checked={on}
-                    onChange={() => setList("proto", on ? state.lists.proto.filter((x) => x !== value) : [...state.lists.proto, value])}
+                    onChange={() => setList("proto", (proto) => (proto.includes(value) ? proto.filter((x) => x !== value) : [...proto, value]))}
                     className="accent-sand-300"
                   />
                   {p.name} <span className="font-mono text-xs text-river-300">{p.number}</span>
@@ -72,16 +109,16 @@ export function SliceForm({ state, onChange, collectors, weightAttribute }: Slic
           <ChipInput
             label="Other protocol numbers"
             values={otherProtocols}
-            onChange={(others) => setList("proto", [...state.lists.proto.filter((p) => commonNumbers.includes(p)), ...others])}
+            onChange={(others) => setList("proto", (proto) => [...proto.filter((p) => commonNumbers.includes(p)), ...others])}
             check={checkProtocolChip}
             display={protocolLabel}
-            placeholder="47"
+            placeholder="add a number, e.g. 47"
             hint="IANA protocol numbers 0–255. None chosen: every protocol."
           />
         </fieldset>
       </Section>
 
-      <Collectors known={collectors} chosen={state.lists.collectors} onChange={(v) => setList("collectors", v)} />
+      <Collectors known={collectors} chosen={state.lists.collectors} onToggle={(name) => setList("collectors", (c) => (c.includes(name) ? c.filter((x) => x !== name) : [...c, name]))} />
 
       <Section title="Measure">
         <LabeledSelect
@@ -122,6 +159,7 @@ export function SliceForm({ state, onChange, collectors, weightAttribute }: Slic
         {state.groupBy !== null ? <SplitRankField checked={state.rank === "split"} onChange={(split) => set("rank", split ? "split" : "estimate")} /> : null}
       </Section>
     </form>
+    </PendingTextContext.Provider>
   );
 }
 
@@ -201,12 +239,11 @@ function NumberField({ label, value, min, max, onCommit, hint, prefix }: { label
  * counts only when picked and never with one of its inputs (the estimate API refuses that
  * with 422); with nothing picked, every stream collector counts and merges are left out.
  */
-function Collectors({ known, chosen, onChange }: { known: CollectorChoice[]; chosen: string[]; onChange(v: string[]): void }) {
+function Collectors({ known, chosen, onToggle: toggle }: { known: CollectorChoice[]; chosen: string[]; onToggle(name: string): void }) {
   const streams = known.filter((c) => c.kind === "stream");
   const merges = known.filter((c) => c.kind === "merge");
   // A shared link may name a collector this tenant does not have; keep it visible so it can be removed.
   const unknown = chosen.filter((name) => !known.some((c) => c.name === name));
-  const toggle = (name: string) => onChange(chosen.includes(name) ? chosen.filter((c) => c !== name) : [...chosen, name]);
   const overlap = overlapOf(merges, chosen);
   return (
     <fieldset className="flex flex-col gap-2 border-t border-river-800 pt-4">
@@ -282,14 +319,13 @@ function overlapOf(merges: CollectorChoice[], chosen: string[]): string | null {
   return null;
 }
 
-const toInput = (ms: number) => new Date(ms).toISOString().slice(0, 16);
-const fromInput = (text: string): number | null => {
-  if (!/^\d{4}-\d{2}-\d{2}T\d{2}:\d{2}(:\d{2})?$/.test(text)) return null;
-  const ms = Date.parse(`${text}${text.length === 16 ? ":00" : ""}Z`);
-  return Number.isFinite(ms) ? ms : null;
-};
+const toInput = formatUtcMinute;
 
-/** Presets, or a custom range typed in UTC (the browser's datetime inputs carry no timezone: Weir reads them as UTC). */
+/**
+ * Presets, or a custom range typed as 24-hour UTC text ("2024-05-01 14:05"): the browser's
+ * own date-time inputs follow its locale (a 12-hour clock in some) and carry no timezone.
+ * A range is applied on Apply, on Enter, and when focus leaves a box while both read as times.
+ */
 function TimeRange({ range, onChange }: { range: SliceRange; onChange(r: SliceRange): void }) {
   const id = useId();
   const custom = !("preset" in range);
@@ -318,14 +354,21 @@ function TimeRange({ range, onChange }: { range: SliceRange; onChange(r: SliceRa
   }
 
   function apply() {
-    const f = fromInput(from);
-    const t = fromInput(to);
-    if (f === null || t === null) return setError("Give both From and To as a date and time (UTC).");
+    const f = parseUtcMinute(from);
+    const t = parseUtcMinute(to);
+    if (f === null || t === null) return setError("Give both From and To as a UTC date and 24-hour time, e.g. 2024-05-01 14:05.");
     if (t <= f) return setError("To must be after From.");
     if (t - f > 400 * 86_400_000) return setError("One question covers at most 400 days; split a longer range.");
     setError(null);
+    if ("from" in range && range.from === f && range.to === t) return;
     onChange({ from: f, to: t });
   }
+  const onKeyDown = (e: KeyboardEvent<HTMLInputElement>) => {
+    if (e.key === "Enter") {
+      e.preventDefault();
+      apply();
+    }
+  };
 
   const selected = editing ? "custom" : "preset" in range ? range.preset : "custom";
   return (
@@ -343,14 +386,36 @@ function TimeRange({ range, onChange }: { range: SliceRange; onChange(r: SliceRa
       {selected === "custom" ? (
         <div className="flex flex-col gap-2">
           <div className="grid grid-cols-2 gap-2">
-            <label className="flex flex-col gap-1 text-sm text-river-100">
-              From (UTC)
-              <input type="datetime-local" value={from} onChange={(e) => setFrom(e.target.value)} className={`${inputClass} px-2 font-mono text-xs`} />
-            </label>
-            <label className="flex flex-col gap-1 text-sm text-river-100">
-              To (UTC)
-              <input type="datetime-local" value={to} onChange={(e) => setTo(e.target.value)} className={`${inputClass} px-2 font-mono text-xs`} />
-            </label>
+            {(
+              [
+                ["From", from, setFrom],
+                ["To", to, setTo],
+              ] as const
+            ).map(([label, value, setValue]) => (
+              <label key={label} className="flex min-w-0 flex-col gap-1 text-sm text-river-100">
+                <span>
+                  {label} <span className="text-xs text-river-300">UTC, 24 h</span>
+                </span>
+                <input
+                  type="text"
+                  inputMode="numeric"
+                  autoComplete="off"
+                  spellCheck={false}
+                  pattern={UTC_MINUTE_PATTERN}
+                  placeholder="YYYY-MM-DD HH:MM"
+                  title="A UTC date and 24-hour time, e.g. 2024-05-01 14:05"
+                  value={value}
+                  aria-invalid={value.trim() !== "" && parseUtcMinute(value) === null}
+                  onChange={(e) => setValue(e.target.value)}
+                  onBlur={() => {
+                    if (parseUtcMinute(from) !== null && parseUtcMinute(to) !== null) apply();
+                    else if (value.trim() !== "" && parseUtcMinute(value) === null) setError(`${label}: give a UTC date and 24-hour time, e.g. 2024-05-01 14:05.`);
+                  }}
+                  onKeyDown={onKeyDown}
+                  className={`${inputClass} w-full px-2 font-mono text-xs placeholder:font-sans placeholder:italic`}
+                />
+              </label>
+            ))}
           </div>
           <div className="flex items-center gap-3">
             <Button type="button" tone="quiet" onClick={apply}>
