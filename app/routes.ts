@@ -15,7 +15,7 @@ export default [
   route("auth/github/callback", "routes/auth.github.callback.ts"),
   route("console", "routes/console.index.tsx"),
   route("invite/:token", "routes/invite.tsx"),
-  // Development only: answers 404 unless the local fake SMTP server is in use (never in production).
+  // Development and demo only: answers 404 unless the local fake SMTP server is in use (never with SMTP_URL set).
   route("dev/mail", "routes/dev.mail.tsx"),
 
   // The console of one tenant; every child checks membership and role again on the server.

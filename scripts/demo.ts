@@ -1,22 +1,33 @@
-// `npm run demo`: Weir with the INVENTED demo scenario, in one command. Migrates
-// DATABASE_URL, seeds the demo tenants when they are missing (`seed.ts`), then serves the
-// app in development mode (Vite middleware, no build needed) and prints the public DEMO
-// keys with copy-pasteable requests. Demo data only: refuses NODE_ENV=production.
+// `npm run demo`: Weir with the INVENTED demo scenario, in one command. Runs in demo mode
+// (WEIR_DEMO=1: a production build served with the local fake GitHub and fake SMTP, refused
+// together with real OAuth or mail credentials): builds the app when build/ is missing or
+// older than its sources (while the database is migrated and seeded), seeds the demo
+// tenants when they are missing (`seed.ts`), starts the server and prints the public DEMO
+// keys with copy-pasteable requests.
+import { spawn } from "node:child_process";
+import { readdirSync, statSync } from "node:fs";
+import { join } from "node:path";
+import { fileURLToPath } from "node:url";
 import { closeDb, createDb } from "~/db/client.server";
 import { runMigrations } from "~/db/migrate.server";
 import { loadEnv } from "~/env.server";
-import { closeOnSignals, startServer } from "~/server/app.server";
+import { closeOnSignals, DEMO_BANNER, startServer } from "~/server/app.server";
 import { DEMO_RIVERLINE_KEY, demoKeyLines } from "./demo-keys";
 import { SeedError, seedDemo } from "./seed";
 
 const HOUR_MS = 3600_000;
+const ROOT = fileURLToPath(new URL("..", import.meta.url));
+const startedAt = performance.now();
+const seconds = () => ((performance.now() - startedAt) / 1000).toFixed(1);
 
+// Demo mode and a production build; variables set by hand (or in .env) still win for the
+// rest, and the environment check refuses GITHUB_CLIENT_ID/SECRET or SMTP_URL beside demo mode.
+process.env.WEIR_DEMO = "1";
+process.env.NODE_ENV = "production";
 const env = loadEnv();
-if (env.NODE_ENV === "production") {
-  console.error("demo: refusing to run with NODE_ENV=production: the demo keys are public");
-  process.exit(2);
-}
+console.log(DEMO_BANNER);
 
+const build = buildIfStale(process.argv.includes("--rebuild"));
 const db = await createDb(env.DATABASE_URL, env.DATABASE_AUTH_TOKEN);
 try {
   await runMigrations(db);
@@ -28,11 +39,16 @@ try {
 } finally {
   closeDb(db);
 }
+await build;
 
-const server = await startServer({ env: { ...env, NODE_ENV: "development" } }).catch((error: unknown) => {
+const server = await startServer({ env }).catch((error: unknown) => {
   console.error(error);
   process.exit(1);
 });
+// The server answers already; the day's kept records are read into its cache meanwhile
+// (a second or so), and the examples below are printed once the first question will be quick.
+const warmed = await server.warmed;
+if (warmed) console.log(`Read the last day's ${warmed.reservoirs.toLocaleString("en-US")} windows (${warmed.records.toLocaleString("en-US")} kept records) into the query cache.`);
 
 // Whole hours around the seeded day, with room for flows replayed from now on.
 const from = new Date(Math.floor((Date.now() - 24 * HOUR_MS) / HOUR_MS) * HOUR_MS).toISOString();
@@ -42,7 +58,7 @@ const flow = { src: "198.51.100.10", dst: "203.0.113.130", sport: 51000, dport: 
 console.log(
   [
     "",
-    `Weir demo running at ${server.url}  (invented data; documentation addresses only)`,
+    `Weir demo running at ${server.url}  (invented data; documentation addresses only; started in ${seconds()} s)`,
     "",
     `Console: ${server.url}/console — sign in through the local fake GitHub as ada-admin (admin), eli-engineer,`,
     "  vera-viewer (riverline) or oskar-outsider (tributary); nina-newcomer has no tenant until invited.",
@@ -66,6 +82,7 @@ console.log(
     ...collectionLines(),
     "",
     "Ctrl-C stops the server.",
+    DEMO_BANNER,
     "",
   ].join("\n"),
 );
@@ -86,4 +103,55 @@ function collectionLines(): string[] {
           `  npm run export-ipfix -- --to 127.0.0.1:${ipfixUdp} --from 127.0.0.2 --duration 10  # an unclaimed one (Exporters page, admins)`,
         ]),
   ];
+}
+
+/**
+ * Runs `react-router build` when build/ is missing or older than any source it is made of
+ * (app/, the Vite and React Router configs, the lockfile), or when asked; resolves when the
+ * build is there. Runs as a child process, so it overlaps the seed on a second core.
+ */
+function buildIfStale(force: boolean): Promise<void> {
+  const built = mtimeOf(join(ROOT, "build/server/index.js"));
+  const sources = Math.max(
+    newestIn(join(ROOT, "app")),
+    ...["vite.config.ts", "react-router.config.ts", "package-lock.json", "tsconfig.json"].map((f) => mtimeOf(join(ROOT, f))),
+  );
+  if (!force && built !== 0 && built >= sources) {
+    console.log("Production build is up to date (build/).");
+    return Promise.resolve();
+  }
+  console.log(built === 0 ? "Building the app (no build/ yet) …" : force ? "Building the app (--rebuild) …" : "Building the app (sources changed since the last build) …");
+  const t0 = performance.now();
+  return new Promise((resolve) => {
+    const child = spawn(process.execPath, [join(ROOT, "node_modules/@react-router/dev/bin.js"), "build"], { cwd: ROOT, stdio: ["ignore", "pipe", "pipe"] });
+    const output: Buffer[] = [];
+    child.stdout.on("data", (chunk: Buffer) => output.push(chunk));
+    child.stderr.on("data", (chunk: Buffer) => output.push(chunk));
+    child.once("exit", (code) => {
+      if (code === 0) {
+        console.log(`Built the app in ${((performance.now() - t0) / 1000).toFixed(1)} s.`);
+        return resolve();
+      }
+      process.stderr.write(Buffer.concat(output));
+      console.error(`demo: react-router build failed (exit ${code}); see the output above`);
+      process.exit(1);
+    });
+  });
+}
+
+function mtimeOf(path: string): number {
+  try {
+    return statSync(path).mtimeMs;
+  } catch {
+    return 0;
+  }
+}
+
+/** The newest modification time of any file under `dir`. */
+function newestIn(dir: string): number {
+  let newest = 0;
+  for (const entry of readdirSync(dir, { withFileTypes: true, recursive: true })) {
+    if (entry.isFile()) newest = Math.max(newest, mtimeOf(join(entry.parentPath, entry.name)));
+  }
+  return newest;
 }

@@ -16,7 +16,8 @@ function makeStorage(env: Env) {
       // Lax keeps cross-site POSTs from carrying the session (CSRF), while links into the console still work.
       sameSite: "lax",
       path: "/",
-      secure: env.NODE_ENV === "production",
+      // Demo mode serves a production build over plain http on this machine: no Secure flag there.
+      secure: env.NODE_ENV === "production" && !env.WEIR_DEMO,
       secrets: [env.SESSION_SECRET],
       maxAge: 7 * 24 * 3600,
     },

@@ -13,12 +13,12 @@ export const meta: Route.MetaFunction = () => [
 
 /**
  * /dev/mail: what the local fake SMTP server caught, newest first. It exists only while
- * that fake is in use, which is never in production (SMTP_URL is required there), and the
- * production check below says so twice rather than trusting one condition.
+ * that fake is in use, which is never in production (SMTP_URL is required there) except in
+ * demo mode, and the check below says so twice rather than trusting one condition.
  */
 export function loader({ context }: Route.LoaderArgs) {
-  const caught = context.env.NODE_ENV === "production" ? null : context.mail.caught();
-  if (caught === null) throw data({ message: "Caught mail exists only in development, when Weir runs its local fake SMTP server (SMTP_URL unset)." }, { status: 404 });
+  const caught = context.env.NODE_ENV === "production" && !context.env.WEIR_DEMO ? null : context.mail.caught();
+  if (caught === null) throw data({ message: "Caught mail exists only in development and the demo, when Weir runs its local fake SMTP server (SMTP_URL unset)." }, { status: 404 });
   return { messages: caught };
 }
 
@@ -27,7 +27,7 @@ export default function DevMail() {
   return (
     <main className="mx-auto w-full max-w-5xl px-6 py-10">
       <p className="mb-4 rounded-md bg-sand-950 px-4 py-2 text-sm text-sand-200">
-        Development only: these messages went to the local fake SMTP server started by Weir and were not delivered to anyone. The last 200 are kept in memory until the server stops.
+        Development or demo only: these messages went to the local fake SMTP server started by Weir and were not delivered to anyone. The last 200 are kept in memory until the server stops.
       </p>
       <PageHeader
         title="Caught mail"

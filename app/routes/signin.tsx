@@ -33,7 +33,7 @@ export default function SignIn() {
       </Form>
       {fake ? (
         <p className="mt-4 text-sm text-river-300">
-          Development mode: sign-in goes to a local fake GitHub with invented accounts. It does not exist in a production build.
+          Development or demo: sign-in goes to a local fake GitHub with invented accounts. It never runs beside a real GitHub OAuth app.
         </p>
       ) : null}
     </main>
