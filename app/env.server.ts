@@ -79,8 +79,26 @@ export const envSchema = z
       .max(200)
       .refine((s) => !/[\r\n]/.test(s), "must be one line")
       .default("Weir <weir@localhost>"),
+    // Demo mode (set by `npm run demo`): invented data, public demo keys, the local fake GitHub
+    // and fake SMTP even in a production build. Never together with real credentials (below).
+    WEIR_DEMO: z
+      .enum(["0", "1", "false", "true"], { error: "must be 1 (demo mode) or 0" })
+      .default("0")
+      .transform((v) => v === "1" || v === "true"),
   })
   .superRefine((env, ctx) => {
+    if (env.WEIR_DEMO) {
+      for (const name of ["GITHUB_CLIENT_ID", "GITHUB_CLIENT_SECRET", "SMTP_URL"] as const) {
+        if (!env[name]) continue;
+        ctx.addIssue({
+          code: "custom",
+          path: [name],
+          message:
+            "must be unset in demo mode (WEIR_DEMO=1): the demo signs everyone in through a local fake GitHub with invented accounts and its keys are public, so it never runs with a real OAuth app or mail relay; unset WEIR_DEMO for a real deployment",
+        });
+      }
+      return;
+    }
     if (env.NODE_ENV === "production" && (!env.GITHUB_CLIENT_ID || !env.GITHUB_CLIENT_SECRET)) {
       ctx.addIssue({
         code: "custom",

@@ -16,6 +16,12 @@ import { SnapshotCache } from "./snapshot-cache";
 export interface EstimateContext {
   db: Db;
   manager: Pick<ReservoirManager, "liveColumns">;
+  /**
+   * The server's snapshot cache, which the host warms after start (app/query/warm.server.ts).
+   * It travels in the load context because route modules run in another module graph than
+   * the host; without it, one cache per database handle in this module.
+   */
+  snapshots?: SnapshotCache;
 }
 
 /** What an estimate needs of the tenant it runs for. */
@@ -45,7 +51,7 @@ function cacheFor(db: Db): SnapshotCache {
   return cache;
 }
 
-interface ReservoirRow {
+export interface ReservoirRow {
   id: number;
   collector: string;
   windowStart: number;
@@ -195,8 +201,8 @@ async function reservoirsInRange(db: Db, tenantId: number, query: EstimateQuery)
  * reservoir at the stored version, else from the snapshot cache, else from SQLite in one
  * read transaction for all the rest.
  */
-async function keptColumns(ctx: EstimateContext, tenantId: number, rows: ReservoirRow[]): Promise<ScanReservoir[]> {
-  const cache = cacheFor(ctx.db);
+export async function keptColumns(ctx: EstimateContext, tenantId: number, rows: ReservoirRow[]): Promise<ScanReservoir[]> {
+  const cache = ctx.snapshots ?? cacheFor(ctx.db);
   const out: ScanReservoir[] = [];
   const missing: ReservoirRow[] = [];
   for (const row of rows) {

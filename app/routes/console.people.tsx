@@ -406,7 +406,7 @@ function InviteForm({ base, result, fakeMail }: { base: string; result: ActionRe
             ) : null}
           </p>
         ) : null}
-        {fakeMail && !result ? <p className="text-xs text-river-300">Development mode: e-mail goes to a local fake SMTP server; read it at /dev/mail.</p> : null}
+        {fakeMail && !result ? <p className="text-xs text-river-300">Development or demo: e-mail goes to a local fake SMTP server; read it at /dev/mail.</p> : null}
       </Form>
     </Panel>
   );

@@ -19,6 +19,8 @@ import type { UniformSource } from "../sampling/uniform";
 import { startRetentionTimer, type RetentionTimerOptions } from "../retention/timer.server";
 import { startCalibrationTimer, type CalibrationTimerOptions } from "../calibration/timer.server";
 import { Collection } from "../collect/collection.server";
+import { SnapshotCache } from "../query/snapshot-cache";
+import { warmRecentWindows, type WarmReport } from "../query/warm.server";
 
 declare module "react-router" {
   // What every loader and action receives as `context`. Server-wide resources travel this
@@ -33,11 +35,15 @@ declare module "react-router" {
     github: GitHubConfig;
     mail: Mail;
     collection: Collection;
+    /** Kept records read from SQLite, by reservoir; warmed with the recent windows after start. */
+    snapshots: SnapshotCache;
   }
 }
 
 const PROJECT_ROOT = fileURLToPath(new URL("../..", import.meta.url));
 const SHUTDOWN_GRACE_MS = 10_000;
+/** Printed (and logged) whenever demo mode runs, so nobody mistakes it for a deployment. */
+export const DEMO_BANNER = "demo: invented data, fake sign-in (WEIR_DEMO=1: local fake GitHub and fake SMTP, public demo keys; not for real traffic)";
 
 export interface StartServerOptions {
   /** Validated environment; defaults to `loadEnv()` (process env and `.env`). */
@@ -59,6 +65,8 @@ export interface StartServerOptions {
    * IPFIX_TCP_PORT): null turns one off, 0 asks the OS for a free port (tests).
    */
   collect?: { ipfixUdpPort?: number | null; netflowUdpPort?: number | null; ipfixTcpPort?: number | null; flushMs?: number; statsIntervalMs?: number };
+  /** Read the last day's kept records into the snapshot cache after start, in the background (default true). */
+  warm?: boolean;
 }
 
 export interface WeirServer {
@@ -76,6 +84,9 @@ export interface WeirServer {
   mail: Mail;
   /** The UDP/TCP listeners and their decode worker. */
   collection: Collection;
+  snapshots: SnapshotCache;
+  /** Settles when the background warm-up of recent windows has ended (null: off or failed). */
+  warmed: Promise<WarmReport | null>;
   /** Stops accepting connections, lets in-flight requests finish, then closes the database. */
   close(): Promise<void>;
 }
@@ -89,6 +100,11 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
   const env = options.env ?? loadEnv();
   const logger = options.logger ?? createLogger(env.LOG_LEVEL);
   const production = env.NODE_ENV === "production";
+  // The environment check refuses this too; an env object built by hand must not slip past it.
+  if (env.WEIR_DEMO && (env.GITHUB_CLIENT_ID || env.GITHUB_CLIENT_SECRET || env.SMTP_URL)) {
+    throw new Error("demo mode (WEIR_DEMO=1) never runs with real GitHub OAuth credentials or SMTP_URL");
+  }
+  if (env.WEIR_DEMO) logger.warn(DEMO_BANNER);
 
   const db = await createDb(env.DATABASE_URL, env.DATABASE_AUTH_TOKEN);
   let vite: ViteDevServer | undefined;
@@ -126,6 +142,7 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
       statsIntervalMs: collect.statsIntervalMs,
     }));
 
+    const snapshots = new SnapshotCache();
     const app = express();
     app.disable("x-powered-by");
     // Created before Vite so its HMR socket can share this port: a second fixed port would
@@ -156,7 +173,7 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
       createRequestHandler({
         build,
         mode: production ? "production" : "development",
-        getLoadContext: () => ({ db, env, logger, manager, parsePool: pool, github, mail, collection: listeners }),
+        getLoadContext: () => ({ db, env, logger, manager, parsePool: pool, github, mail, collection: listeners, snapshots }),
       }),
     );
     app.use(lastResortErrorHandler(logger));
@@ -174,18 +191,34 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
       { ...options.calibration, intervalMs: options.calibration?.intervalMs ?? env.CALIBRATION_INTERVAL_MINUTES * 60_000 },
     );
     let closing: Promise<void> | undefined;
+    // The first question after a start is usually about the last day: read it into the cache
+    // now, in steps between which requests are served, rather than in that question's time.
+    const warmStartedAt = performance.now();
+    const warmed: Promise<WarmReport | null> =
+      options.warm === false
+        ? Promise.resolve(null)
+        : warmRecentWindows({ db, manager, snapshots }, { now: Date.now(), stopped: () => closing !== undefined }).then(
+            (report) => {
+              logger.info({ ...report, ms: Math.round(performance.now() - warmStartedAt) }, "recent windows read into the snapshot cache");
+              return report;
+            },
+            (error: unknown) => {
+              logger.warn({ err: error }, "reading recent windows ahead failed; queries read them from SQLite as usual");
+              return null;
+            },
+          );
     const close = () => {
       // The pool closes after shutDown has drained the HTTP server, so no request loses its parser.
       // A retention run stops after its current transaction, and a calibration run ends, before the database closes.
       // The listeners stop and store what they buffered before the database closes.
-      closing ??= Promise.all([retention.stop(), calibration.stop()])
+      closing ??= Promise.all([retention.stop(), calibration.stop(), warmed])
         .then(() => listeners.close())
         .then(() => shutDown(httpServer, vite, db, logger, manager))
         .then(() => pool.close())
         .then(() => closeAll(fakes));
       return closing;
     };
-    return { url, port, httpServer, app, db, env, logger, manager, parsePool: pool, github, mail, collection: listeners, close };
+    return { url, port, httpServer, app, db, env, logger, manager, parsePool: pool, github, mail, collection: listeners, snapshots, warmed, close };
   } catch (error) {
     await vite?.close();
     await parsePool?.close();
@@ -198,14 +231,14 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
 
 /**
  * GitHub sign-in: the real one when an OAuth app is configured; otherwise (never in
- * production: the environment check refuses that) a local fake GitHub on a free loopback
- * port, started here so development, the demo and tests sign in the same way.
+ * production outside demo mode: the environment check refuses that) a local fake GitHub on
+ * a free loopback port, started here so development, the demo and tests sign in the same way.
  */
 async function githubConfig(env: Env, fakes: { close(): Promise<void> }[], logger: Logger): Promise<GitHubConfig> {
   if (env.GITHUB_CLIENT_ID && env.GITHUB_CLIENT_SECRET) {
     return { clientId: env.GITHUB_CLIENT_ID, clientSecret: env.GITHUB_CLIENT_SECRET, oauthUrl: env.GITHUB_OAUTH_URL, apiUrl: env.GITHUB_API_URL, fake: false };
   }
-  if (env.NODE_ENV === "production") throw new Error("GitHub OAuth credentials are required in production");
+  if (env.NODE_ENV === "production" && !env.WEIR_DEMO) throw new Error("GitHub OAuth credentials are required in production");
   const { startFakeGitHub } = await import("../../scripts/fakes/github");
   const fake = await startFakeGitHub();
   fakes.push(fake);
@@ -214,12 +247,13 @@ async function githubConfig(env: Env, fakes: { close(): Promise<void> }[], logge
 }
 
 /**
- * Outgoing mail: the configured SMTP relay; otherwise (never in production, which requires
- * SMTP_URL) a local fake SMTP server that catches messages for /dev/mail and tests.
+ * Outgoing mail: the configured SMTP relay; otherwise (never in production outside demo
+ * mode, which requires SMTP_URL) a local fake SMTP server that catches messages for
+ * /dev/mail and tests.
  */
 async function mailService(env: Env, fakes: { close(): Promise<void> }[], logger: Logger): Promise<Mail> {
   if (env.SMTP_URL) return createMail({ smtpUrl: env.SMTP_URL, from: env.MAIL_FROM });
-  if (env.NODE_ENV === "production") throw new Error("SMTP_URL is required in production");
+  if (env.NODE_ENV === "production" && !env.WEIR_DEMO) throw new Error("SMTP_URL is required in production");
   const { startFakeSmtp } = await import("../../scripts/fakes/smtp");
   const fake = await startFakeSmtp();
   fakes.push(fake);
