@@ -8,13 +8,22 @@ import { createDb } from "~/db/client.server";
 import { runMigrations } from "~/db/migrate.server";
 import { createTenant, ensureCollector } from "~/tenants.server";
 
-/** Starts scripts/bench/child.ts on the given database; resolves with its URL once it listens. */
+/**
+ * Starts scripts/bench/child.ts on the given database (development mode unless `production`,
+ * which needs build/); resolves with its URL once it listens.
+ */
 export function startChildServer(
   databaseUrl: string,
-  options: { collect?: boolean } = {},
+  options: { collect?: boolean; production?: boolean; warm?: boolean } = {},
 ): Promise<{ child: ChildProcess; url: string; udpPort?: number; stop: () => Promise<void> }> {
   const child = spawn(process.execPath, ["--import", "tsx", fileURLToPath(new URL("./child.ts", import.meta.url))], {
-    env: { ...process.env, DATABASE_URL: databaseUrl, BENCH_COLLECT: options.collect ? "1" : "0" },
+    env: {
+      ...process.env,
+      DATABASE_URL: databaseUrl,
+      BENCH_COLLECT: options.collect ? "1" : "0",
+      BENCH_PRODUCTION: options.production ? "1" : "0",
+      BENCH_WARM: options.warm === false ? "0" : "1",
+    },
     stdio: ["ignore", "pipe", "inherit"],
   });
   const stop = () =>
