@@ -7,6 +7,7 @@
  * Pure module: no I/O, usable in the browser and on the server.
  */
 import { z } from "zod";
+import { parseRfc3339 } from "../time/rfc3339.ts";
 import { FILTER_FIELDS, FILTER_NAMES, GROUP_BY, VALUE_KINDS, type GroupByKind, type NumberRange, type WhereFilters, type WhereRequest } from "./fields.ts";
 
 export { GROUP_BY, type GroupByKind } from "./fields.ts";
@@ -91,40 +92,13 @@ export type ParsedQuery = { ok: true; query: EstimateQuery } | { ok: false; mess
 
 // ---- leaf values ---------------------------------------------------------------------------
 
-const TIME_FORM = "ISO 8601 with a timezone (e.g. 2024-05-01T02:00:00Z) or epoch milliseconds";
-const ISO_PATTERN =
-  /^(\d{4})-(\d{2})-(\d{2})(?:[Tt](\d{2}):(\d{2})(?::(\d{2})(?:[.,](\d{1,9}))?)?([Zz]|[+-]\d{2}:\d{2}))?$/;
+const TIME_FORM = "RFC 3339 date-time (e.g. 2024-05-01T02:00:00Z), a date (UTC midnight) or epoch milliseconds";
 
-/** Epoch ms of ISO 8601 text (the RFC 3339 profile; a bare date is UTC midnight), or a reason. */
+/** Epoch ms of RFC 3339 text (app/time/rfc3339.ts; a bare date is UTC midnight), or a reason. */
 function isoToMs(text: string): number | string {
-  const m = ISO_PATTERN.exec(text);
-  if (!m) {
-    return /^\d{4}-\d{2}-\d{2}[Tt]\d{2}:\d{2}(:\d{2}([.,]\d+)?)?$/.test(text)
-      ? `needs a timezone (Z or ±hh:mm): ${TIME_FORM}`
-      : `must be ${TIME_FORM}`;
-  }
-  const [year, month, day, hour = 0, minute = 0, second = 0] = m.slice(1, 7).map((v) => (v === undefined ? undefined : Number(v))) as number[];
-  if (year < 1970) return "is before 1970-01-01T00:00:00Z";
-  const ms = m[7] === undefined ? 0 : Math.floor(Number(`0.${m[7]}`) * 1000);
-  const local = Date.UTC(year, month - 1, day, hour, minute, second, ms);
-  const check = new Date(local);
-  // Date.UTC rolls 31 April over into 1 May; a round trip catches dates that do not exist.
-  if (
-    check.getUTCFullYear() !== year || check.getUTCMonth() !== month - 1 || check.getUTCDate() !== day ||
-    hour > 23 || minute > 59 || second > 59
-  ) {
-    return `is not a real date and time: ${TIME_FORM}`;
-  }
-  const zone = m[8];
-  let offsetMinutes = 0;
-  if (zone !== undefined && zone !== "Z" && zone !== "z") {
-    const hours = Number(zone.slice(1, 3));
-    const minutes = Number(zone.slice(4, 6));
-    if (hours > 23 || minutes > 59) return `has an impossible timezone offset: ${TIME_FORM}`;
-    offsetMinutes = (zone[0] === "+" ? 1 : -1) * (hours * 60 + minutes);
-  }
-  const at = local - offsetMinutes * 60_000;
-  return at < 0 ? "is before 1970-01-01T00:00:00Z" : at;
+  const ms = parseRfc3339(text, { date: true });
+  if (typeof ms === "string") return ms.startsWith("must be ") ? `must be ${TIME_FORM}` : ms;
+  return ms < 0 ? "is before 1970-01-01T00:00:00Z" : ms;
 }
 
 function fail(ctx: z.RefinementCtx, input: unknown, message: string, path: PropertyKey[] = []): never {

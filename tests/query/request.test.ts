@@ -94,7 +94,7 @@ describe("a valid request", () => {
     expect(single).toEqual(lists);
   });
 
-  it("reads times as ISO 8601 with a zone, a bare date (UTC midnight) or epoch ms (RFC 3339 §5.6)", () => {
+  it("reads times as RFC 3339 date-time, a bare date (UTC midnight) or epoch ms (RFC 3339 §5.6; app/time/rfc3339.ts)", () => {
     const range = (from: unknown, to: unknown) => {
       const q = ok(parseEstimateRequest({ from, to }));
       return [q.from, q.to];
@@ -102,7 +102,9 @@ describe("a valid request", () => {
     expect(range("2024-05-01", "2024-05-02")).toEqual([FROM_MS, TO_MS]);
     expect(range(FROM_MS, String(TO_MS))).toEqual([FROM_MS, TO_MS]);
     expect(range("2024-05-01T00:00:00z", "2024-05-01T23:00:00-01:00")).toEqual([FROM_MS, TO_MS]);
-    expect(range("2024-05-01T00:00Z", "2024-05-01T00:00:00,5Z")).toEqual([FROM_MS, FROM_MS + 500]);
+    // The NOTE of §5.6: a space may stand for "T"; a leap second (§5.7) is kept as 23:59:59.999Z.
+    expect(range("2024-05-01 00:00:00Z", "2024-05-01T00:00:00.5Z")).toEqual([FROM_MS, FROM_MS + 500]);
+    expect(range("2016-12-31T23:59:60Z", "2017-01-01")).toEqual([Date.UTC(2016, 11, 31, 23, 59, 59, 999), Date.UTC(2017, 0, 1)]);
   });
 });
 
@@ -159,14 +161,16 @@ describe("an invalid request is refused with the field and the reason", () => {
     [{ from: DAY.to, to: DAY.from }, "to", /must be after from \(2024-05-02T00:00:00\.000Z\)/],
     [{ from: FROM_MS, to: FROM_MS }, "to", /must be after from/],
     [{ from: "2023-01-01", to: "2024-05-02" }, "to", /spans 487 days; one query covers at most 400 days/],
-    [{ from: "2024-05-01T00:00:00", to: DAY.to }, "from", /needs a timezone/], // RFC 3339 §5.6: an offset is required
-    [{ from: "yesterday", to: DAY.to }, "from", /ISO 8601 with a timezone .* or epoch milliseconds/],
+    [{ from: "2024-05-01T00:00:00", to: DAY.to }, "from", /needs an offset/], // RFC 3339 §5.6: an offset is required
+    [{ from: "2024-05-01T00:00Z", to: DAY.to }, "from", /needs seconds/], // RFC 3339 §5.6 partial-time: seconds are required
+    [{ from: "2024-05-01T00:00:00,5Z", to: DAY.to }, "from", /after "\."/], // RFC 3339 §5.6 time-secfrac: "." only
+    [{ from: "yesterday", to: DAY.to }, "from", /RFC 3339 .* or epoch milliseconds/],
     [{ from: "2024-02-30", to: DAY.to }, "from", /not a real date/], // no 30 February
     [{ from: -5, to: DAY.to }, "from", /non-negative whole number/],
     [{ from: 1.5, to: DAY.to }, "from", /non-negative whole number/],
     [{ from: "1969-12-31T23:59:59Z", to: DAY.to }, "from", /before 1970-01-01/], // epoch ms are non-negative
     [{ from: "1970-01-01T00:30:00+01:00", to: DAY.to }, "from", /before 1970-01-01/],
-    [{ from: true, to: DAY.to }, "from", /ISO 8601/],
+    [{ from: true, to: DAY.to }, "from", /RFC 3339/],
     // ISO 8601 years have four digits; ECMA-262 TimeClip ends dates at 8.64e15 ms: later is refused, not a crash.
     [{ from: "8700000000000000", to: "8700000000000001" }, "from", /must be before 10000-01-01T00:00:00Z/],
     [{ from: DAY.from, to: Date.UTC(10000, 0, 1) }, "to", /must be before 10000-01-01T00:00:00Z/],
@@ -216,7 +220,7 @@ describe("an invalid request is refused with the field and the reason", () => {
     expect(parsed.ok).toBe(false);
     if (parsed.ok) return;
     expect(parsed.details.map((d) => d.path)).toEqual(["from", "where.src[0]", "where.proto[0]", "top"]);
-    expect(parsed.message).toMatch(/^Invalid query: from: must be ISO 8601 .* \(and 3 more\)\.$/);
+    expect(parsed.message).toMatch(/^Invalid query: from: must be RFC 3339 .* \(and 3 more\)\.$/);
   });
 });
 
