@@ -1,6 +1,7 @@
 import { existsSync } from "node:fs";
 import { availableParallelism } from "node:os";
 import { z } from "zod";
+import { parseRfc3339 } from "./time/rfc3339.ts";
 
 /**
  * A development-only session secret, so `npm run dev` works without a `.env`.
@@ -35,6 +36,22 @@ export const envSchema = z
     INGEST_PARSE_WORKERS: z.coerce.number().int().min(0).default(() => Math.max(1, availableParallelism() - 1)),
     // Bytes of ingest bodies that may wait for a parse worker; beyond, POST /api/v1/flows answers 503 (retry).
     INGEST_PARSE_QUEUE_BYTES: z.coerce.number().int().positive().default(268_435_456),
+    // Time sanity on ingest (app/ingest/time-check.ts). A record whose start or end lies more than
+    // this many seconds ahead of the server clock is refused (an exporter's clock may run a little ahead).
+    INGEST_FUTURE_TOLERANCE_SECONDS: z.coerce.number().int().min(0).max(86_400).default(300),
+    // Times before this RFC 3339 instant are refused: epoch seconds sent as milliseconds land in 1970.
+    INGEST_TIME_FLOOR: z
+      .string()
+      .default("2000-01-01T00:00:00Z")
+      .transform((text, ctx) => {
+        const ms = parseRfc3339(text, { date: true });
+        if (typeof ms === "number" && ms >= 0) return ms;
+        ctx.addIssue({ code: "custom", message: `must be an RFC 3339 time at or after 1970-01-01T00:00:00Z, e.g. 2000-01-01T00:00:00Z (${typeof ms === "string" ? ms : "before 1970"})` });
+        return z.NEVER;
+      }),
+    // Refuse records whose start is older than the tenant's retention keeps (hourly_retention_days):
+    // the next retention run would delete them. false accepts them (a backfill with retention off).
+    INGEST_REFUSE_EXPIRED: z.enum(["true", "false"], { error: "must be true or false" }).default("true").transform((v) => v === "true"),
     IDEMPOTENCY_TTL_HOURS: z.coerce.number().positive().default(24),
     // Largest sample file an import (POST /api/v1/samples, the console upload) accepts.
     SAMPLES_MAX_BODY_BYTES: z.coerce.number().int().positive().default(67_108_864),

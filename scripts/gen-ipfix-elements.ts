@@ -179,6 +179,14 @@ function generate(ianaPath: string, reversePath: string): string {
   out("  return byName.get(name);");
   out("}");
   out("");
+  out("/**");
+  out(" * Every IANA-assigned element name (enterprise 0), in id order: what a JSON record may carry.");
+  out(" * @example elementNames()[0] // \"octetDeltaCount\"");
+  out(" */");
+  out("export function elementNames(): string[] {");
+  out("  return [...ianaById.keys()].sort((a, b) => a - b).map((id) => ianaById.get(id)!.name);");
+  out("}");
+  out("");
   return lines.join("\n");
 }
 

@@ -67,6 +67,9 @@ export interface KeyPrincipal {
     weightAttribute: "bytes" | "packets";
     /** The SipHash key of coordinated draws when the tenant samples with coordinated priorities, else null. */
     coordinationKey: Uint8Array | null;
+    /** tenants.retention_days and hourly_retention_days: ingest refuses starts retention would delete. */
+    retentionDays: number;
+    hourlyRetentionDays: number;
   };
   collector: { id: number; name: string };
 }
@@ -118,6 +121,8 @@ export async function authenticateKey(db: Db, request: Request, scope: Scope): P
       weightAttribute: tenants.weightAttribute,
       coordinated: tenants.coordinated,
       coordinationSecret: tenants.coordinationSecret,
+      retentionDays: tenants.retentionDays,
+      hourlyRetentionDays: tenants.hourlyRetentionDays,
       collectorId: collectors.id,
       collectorName: collectors.name,
     })
@@ -145,6 +150,8 @@ export async function authenticateKey(db: Db, request: Request, scope: Scope): P
       windowSeconds: row.windowSeconds,
       weightAttribute: row.weightAttribute,
       coordinationKey: coordinationKeyOf(row),
+      retentionDays: row.retentionDays,
+      hourlyRetentionDays: row.hourlyRetentionDays,
     },
     collector: { id: row.collectorId, name: row.collectorName },
   };

@@ -62,6 +62,8 @@ export interface CollectionCounters {
   rowsDroppedOverload: number;
   /** Rows lost because their batch failed to commit (logged). */
   rowsFailedToStore: number;
+  /** Rows dropped for their times (too far ahead, before the floor, beyond retention); counted per collector too. */
+  rowsTimeRefused: number;
   batches: number;
 }
 
@@ -115,7 +117,7 @@ const MAX_EXPORTER_KEYS = 10_000;
 export class Collection {
   readonly ports: CollectionPorts = {};
   readonly counters: CollectionCounters = {
-    datagrams: 0, tcpMessages: 0, tcpConnections: 0, messagesDecoded: 0, rowsDecoded: 0, rowsUnclaimed: 0, rowsStored: 0, rowsDroppedOverload: 0, rowsFailedToStore: 0, batches: 0,
+    datagrams: 0, tcpMessages: 0, tcpConnections: 0, messagesDecoded: 0, rowsDecoded: 0, rowsUnclaimed: 0, rowsStored: 0, rowsDroppedOverload: 0, rowsFailedToStore: 0, rowsTimeRefused: 0, batches: 0,
   };
   private tcpServer?: TcpServer;
   private readonly tcpSockets = new Set<TcpSocket>();
@@ -423,14 +425,16 @@ export class Collection {
       try {
         const [tenant, collector] = await Promise.all([this.tenant(buffer.tenantId), this.collectorName(buffer.collectorId)]);
         if (tenant === null || collector === null) throw new Error(`tenant ${buffer.tenantId} or collector ${buffer.collectorId} no longer exists`);
-        await this.options.manager.ingest({
+        const answer = await this.options.manager.ingest({
           tenant,
           collector: { id: buffer.collectorId, name: collector },
           records: { rows, count },
-          receivedAt: Date.now(),
+          // The manager's clock: flow times are checked against it, and records refused for them dropped and counted.
+          receivedAt: this.options.manager.now(),
           source: buffer.transport as IngestSource,
         });
-        this.counters.rowsStored += count;
+        this.counters.rowsStored += answer.accepted;
+        this.counters.rowsTimeRefused += count - answer.accepted;
         this.counters.batches++;
       } catch (error) {
         this.counters.rowsFailedToStore += count;
@@ -445,7 +449,7 @@ export class Collection {
     const cached = this.tenants.get(id);
     if (cached && Date.now() - cached.at < TENANT_CACHE_MS) return cached.value;
     const found = await this.options.db.$client.execute({
-      sql: "SELECT id, sample_size, window_seconds, weight_attribute, coordinated, coordination_secret FROM tenants WHERE id = ?",
+      sql: "SELECT id, sample_size, window_seconds, weight_attribute, coordinated, coordination_secret, retention_days, hourly_retention_days FROM tenants WHERE id = ?",
       args: [id],
     });
     const row = found.rows[0];
@@ -456,6 +460,8 @@ export class Collection {
           windowSeconds: Number(row.window_seconds),
           weightAttribute: row.weight_attribute === "packets" ? "packets" : "bytes",
           coordinationKey: coordinationKeyOf({ coordinated: Boolean(row.coordinated), coordinationSecret: row.coordination_secret === null ? null : String(row.coordination_secret) }),
+          retentionDays: Number(row.retention_days),
+          hourlyRetentionDays: Number(row.hourly_retention_days),
         }
       : null;
     this.tenants.set(id, { at: Date.now(), value });

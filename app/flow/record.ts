@@ -4,8 +4,26 @@
  * Canonical JSON names are IPFIX information-element names (RFC 7012, IANA IPFIX registry);
  * Weir's short aliases (`src`, `dst`, `sport`, `dport`, `proto`, `bytes`, `packets`,
  * `start`, `end`) are accepted beside them. Naming one field twice is fine when both names
- * carry the same value and an error naming both when they differ. Unknown names are an
- * error: a typo must not silently drop data. `null` counts as absent.
+ * carry the same value and an error naming both when they differ. `null` counts as absent.
+ *
+ * Every other name of the IANA IPFIX registry (the table app/ipfix/elements.ts, which the
+ * IPFIX decoder reads too) is accepted and mapped or ignored:
+ * - time forms (RFC 7012 / IANA): flowStart/EndSeconds (dateTimeSeconds), …Milliseconds,
+ *   …Microseconds and …Nanoseconds (epoch counts in those units, or RFC 3339 text) become
+ *   the record's start and end in milliseconds, truncated; several forms of one time must
+ *   agree at the coarser form's precision, and the finest one is kept;
+ * - total counts (octetTotalCount 85, packetTotalCount 86): RFC 7012 defines them as the
+ *   octets / packets of the flow since the Metering Process (re-)initialisation, the delta
+ *   forms (1, 2) as those since the flow's previous report. For a flow reported once they
+ *   are the same number, so a total stands in for its delta form when the record has none,
+ *   as the IPFIX decoder does; with both, the delta form is used and the total ignored.
+ *   (An exporter that reports one long flow several times with totals only would be
+ *   counted more than once: common practice is to send deltas, as RFC 7012 recommends.)
+ * - every other IANA element (tcpControlBits, vlanId, flowStartDeltaMicroseconds, …) is
+ *   ignored, and counted per name so Intake and the ingest answer can show it.
+ * RFC 5103 reverse elements are refused: a record carries one direction (send the reverse
+ * direction as a record of its own). A name in no registry is an error: a typo must not
+ * silently drop data.
  *
  * Each record becomes a weighted item of a priority sample (Duffield, Lund, Thorup,
  * "Priority sampling for estimation of arbitrary subset sums", J. ACM 54(6), 2007), whose
@@ -14,8 +32,10 @@
  * Pure module: no I/O, usable in the browser and on the server.
  */
 import { z } from "zod";
-import { elementByName } from "../ipfix/elements.ts";
+import { elementByName, elementNames } from "../ipfix/elements.ts";
 import { formatAddress, parseAddress, parseIPv4, parseIPv6 } from "../net/address.ts";
+import { DEFAULT_TIME_FLOOR_MS, END_OF_TIME_MS, showTime, unitHint } from "../time/flow-time.ts";
+import { parseRfc3339, RFC3339_FORM } from "../time/rfc3339.ts";
 
 /** One validated flow record. Addresses are 16 bytes, IPv4 stored IPv4-mapped (RFC 4291 §2.5.5.2). */
 export type FlowRecord = {
@@ -59,7 +79,7 @@ export type FlowRecordIssue = { path: string; message: string };
 export type FlowRecordResult = { ok: true; record: FlowRecord } | { ok: false; issues: FlowRecordIssue[] };
 
 export type FlowBatchResult =
-  | { ok: true; records: FlowRecord[] }
+  | { ok: true; records: FlowRecord[]; ignoredFields: Record<string, number> }
   | { ok: false; invalidCount: number; details: { index: number; path: string; message: string }[] };
 
 /** At most this many error details are returned for one batch; all invalid records are still counted. */
@@ -114,90 +134,44 @@ function counter(value: number | string): bigint | string {
   return count;
 }
 
-function readDigits(text: string, at: number, count: number): number {
-  if (at + count > text.length) return -1;
-  let value = 0;
-  for (let i = at; i < at + count; i++) {
-    const c = text.charCodeAt(i);
-    if (c < 48 || c > 57) return -1;
-    value = value * 10 + (c - 48);
-  }
-  return value;
-}
-
-function daysInMonth(year: number, month: number): number {
-  if (month === 2) return (year % 4 === 0 && year % 100 !== 0) || year % 400 === 0 ? 29 : 28;
-  return month === 4 || month === 6 || month === 9 || month === 11 ? 30 : 31;
-}
-
-const ISO_FORM = "ISO 8601 text with a timezone, e.g. 2024-05-01T02:00:00Z or 2024-05-01T04:00:00.250+02:00";
+const TIME_FORM = `epoch milliseconds or ${RFC3339_FORM}`;
 const BEFORE_EPOCH = "is before 1970-01-01T00:00:00Z; flow times are non-negative epoch milliseconds";
 
-/**
- * ISO 8601 date-time with a timezone (the RFC 3339 §5.6 profile; seconds optional) to epoch
- * milliseconds. Fractions beyond milliseconds are truncated. A leap second (:60) is accepted
- * and lands on the next second, as POSIX time does. Returns a reason string when invalid.
- */
-function isoToMilliseconds(text: string): number | string {
-  const bad = `must be epoch milliseconds or ${ISO_FORM}`;
-  const year = readDigits(text, 0, 4);
-  const month = readDigits(text, 5, 2);
-  const day = readDigits(text, 8, 2);
-  const hour = readDigits(text, 11, 2);
-  const minute = readDigits(text, 14, 2);
-  if (
-    year < 0 || month < 0 || day < 0 || hour < 0 || minute < 0 ||
-    text[4] !== "-" || text[7] !== "-" || (text[10] !== "T" && text[10] !== "t") || text[13] !== ":"
-  ) {
-    return bad;
-  }
-  let i = 16;
-  let second = 0;
-  let millisecond = 0;
-  if (text[i] === ":") {
-    second = readDigits(text, i + 1, 2);
-    if (second < 0) return bad;
-    i += 3;
-    if (text[i] === "." || text[i] === ",") {
-      i++;
-      const start = i;
-      let scale = 100;
-      while (i < text.length && text.charCodeAt(i) >= 48 && text.charCodeAt(i) <= 57) {
-        millisecond += (text.charCodeAt(i) - 48) * scale;
-        scale /= 10;
-        i++;
-      }
-      if (i === start) return bad;
-      millisecond = Math.floor(millisecond);
-    }
-  }
-  let offsetMinutes = 0;
-  const zone = text[i];
-  if (zone === "Z" || zone === "z") {
-    i++;
-  } else if (zone === "+" || zone === "-") {
-    const offsetHour = readDigits(text, i + 1, 2);
-    const offsetMinute = readDigits(text, i + 4, 2);
-    if (offsetHour < 0 || offsetMinute < 0 || text[i + 3] !== ":" || offsetHour > 23 || offsetMinute > 59) return bad;
-    offsetMinutes = (zone === "+" ? 1 : -1) * (offsetHour * 60 + offsetMinute);
-    i += 6;
-  } else {
-    return `needs a timezone (Z or ±hh:mm): ${ISO_FORM}`;
-  }
-  if (i !== text.length) return bad;
-  if (year < 1970) return BEFORE_EPOCH;
-  if (month < 1 || month > 12 || day < 1 || day > daysInMonth(year, month) || hour > 23 || minute > 59 || second > 60) {
-    return `is not a real date and time: ${ISO_FORM}`;
-  }
-  const ms = Date.UTC(year, month - 1, day, hour, minute, second, millisecond) - offsetMinutes * 60_000;
+/** A time from epoch milliseconds, refused at and after END_OF_TIME_MS (with a unit hint when one fits). */
+function inTimeRange(ms: number): number | string {
+  if (ms < END_OF_TIME_MS) return ms;
+  const hint = unitHint(ms, DEFAULT_TIME_FLOOR_MS, END_OF_TIME_MS - 1);
+  return `is after 9999-12-31T23:59:59Z, the last time RFC 3339 can write${hint ? `; ${hint}` : ""}`;
+}
+
+function fromText(text: string): number | string {
+  const ms = parseRfc3339(text);
+  if (typeof ms === "string") return ms;
   return ms < 0 ? BEFORE_EPOCH : ms;
 }
 
-function timestamp(value: number | string): number | string {
-  if (typeof value === "string") return isoToMilliseconds(value);
-  if (Number.isSafeInteger(value) && value >= 0) return value;
-  return "must be epoch milliseconds as a non-negative whole number";
+/** A converter of a time in whole `unit`s since the epoch, or RFC 3339 text, to epoch ms (truncated). */
+function timeIn(unit: "seconds" | "milliseconds" | "microseconds" | "nanoseconds"): Convert<number> {
+  const scale = unit === "seconds" ? 1000 : unit === "milliseconds" ? 1 : unit === "microseconds" ? 1 / 1000 : 1 / 1_000_000;
+  const whole = `must be epoch ${unit} as a non-negative whole number, or ${RFC3339_FORM}`;
+  return (value: number | string) => {
+    if (typeof value === "string") {
+      // Decimal digits: exact where a JSON number would not be (nanoseconds of today exceed 2^53).
+      if (unit !== "milliseconds" && /^\d{1,20}$/.test(value)) {
+        const ms = unit === "seconds" ? BigInt(value) * 1000n : BigInt(value) / (unit === "microseconds" ? 1000n : 1_000_000n);
+        return ms >= BigInt(END_OF_TIME_MS) ? inTimeRange(END_OF_TIME_MS) : Number(ms);
+      }
+      return fromText(value);
+    }
+    // Nanoseconds of today lie above 2^53, where JSON numbers are doubles within 256 ns of the
+    // value sent: close enough for the milliseconds Weir keeps, so any whole number is taken.
+    const exact = unit === "nanoseconds" ? Number.isInteger(value) : Number.isSafeInteger(value);
+    if (!exact || value < 0) return whole;
+    return inTimeRange(Math.floor(value * scale));
+  };
 }
+
+const timestamp = timeIn("milliseconds");
 
 // ---- the wire schema ---------------------------------------------------------------------
 
@@ -220,7 +194,8 @@ const protocol = unsignedInt(255, "an IP protocol number, RFC 7012 unsigned8");
 const interfaceIndex = unsignedInt(UNSIGNED32_MAX, "an interface index, RFC 7012 unsigned32");
 const asNumber = unsignedInt(UNSIGNED32_MAX, "a four-octet AS number, RFC 6793");
 const countValue = numberOrText("a whole number, or a decimal string for values above 2^53−1");
-const timeValue = numberOrText(`epoch milliseconds or ${ISO_FORM}`);
+const timeValue = numberOrText(TIME_FORM);
+const timeOf = (unit: string) => numberOrText(`epoch ${unit} as a whole number, or ${RFC3339_FORM}`);
 
 /** One flow record as sent: every accepted name with its JSON type (null counts as absent). */
 export const flowRecordWireSchema = z.strictObject({
@@ -242,13 +217,30 @@ export const flowRecordWireSchema = z.strictObject({
   packets: countValue,
   flowStartMilliseconds: timeValue,
   start: timeValue,
+  flowStartSeconds: timeOf("seconds"),
+  flowStartMicroseconds: timeOf("microseconds"),
+  flowStartNanoseconds: timeOf("nanoseconds"),
   flowEndMilliseconds: timeValue,
   end: timeValue,
+  flowEndSeconds: timeOf("seconds"),
+  flowEndMicroseconds: timeOf("microseconds"),
+  flowEndNanoseconds: timeOf("nanoseconds"),
+  octetTotalCount: countValue,
+  packetTotalCount: countValue,
   ingressInterface: interfaceIndex,
   egressInterface: interfaceIndex,
   bgpSourceAsNumber: asNumber,
   bgpDestinationAsNumber: asNumber,
 });
+
+/**
+ * IANA element names the schema above does not name: accepted and ignored (counted). Built
+ * from the element table on first use; RFC 5103 reverse elements are not among them.
+ */
+function isIgnoredElement(name: string): boolean {
+  const element = elementByName(name);
+  return element !== undefined && element.enterprise === 0 && !Object.hasOwn(flowRecordWireSchema.shape, name);
+}
 
 type Wire = z.output<typeof flowRecordWireSchema>;
 type WireName = keyof Wire;
@@ -271,8 +263,11 @@ function show(value: Value): string {
   return value instanceof Uint8Array ? formatAddress(value) : String(value);
 }
 
-/** The names one field may be sent under, IPFIX name first, each with its converter. */
-type Field = { names: readonly WireName[]; convert: readonly (Convert<Value> | null)[] };
+/**
+ * The names one field may be sent under, IPFIX name first, each with its converter; for
+ * times, the precision of each name in milliseconds (1000 for seconds), finest first.
+ */
+type Field = { names: readonly WireName[]; convert: readonly (Convert<Value> | null)[]; precisionMs?: readonly number[] };
 
 /**
  * The value given for one field under any of its names, converted. A conversion failure is
@@ -282,6 +277,7 @@ type Field = { names: readonly WireName[]; convert: readonly (Convert<Value> | n
 function pick(wire: Wire, field: Field, issues: FlowRecordIssue[]): Value | undefined {
   let value: Value | undefined;
   let name: WireName | undefined;
+  let precision = 1;
   for (let i = 0; i < field.names.length; i++) {
     const candidate = field.names[i];
     const raw = wire[candidate];
@@ -293,6 +289,17 @@ function pick(wire: Wire, field: Field, issues: FlowRecordIssue[]): Value | unde
     } else if (value === undefined) {
       value = v;
       name = candidate;
+      precision = field.precisionMs?.[i] ?? 1;
+    } else if (field.precisionMs !== undefined) {
+      // A time under two forms (RFC 7012 flowStartSeconds and flowStartMilliseconds, say):
+      // they agree when equal at the coarser one's precision; the finer one (first) is kept.
+      const coarse = Math.max(precision, field.precisionMs[i]);
+      if (Math.floor((value as number) / coarse) !== Math.floor((v as number) / coarse)) {
+        issues.push({
+          path: candidate,
+          message: `${name} and ${candidate} name the same time with different values (${showTime(value as number)} vs ${showTime(v as number)}); send one`,
+        });
+      }
     } else if (!sameValue(value, v)) {
       issues.push({
         path: candidate,
@@ -331,24 +338,46 @@ const DPORT: Field = { names: ["destinationTransportPort", "dport"], convert: [n
 const PROTO: Field = { names: ["protocolIdentifier", "proto"], convert: [null, null] };
 const BYTES: Field = { names: ["octetDeltaCount", "bytes"], convert: [counter, counter] };
 const PACKETS: Field = { names: ["packetDeltaCount", "packets"], convert: [counter, counter] };
-const START: Field = { names: ["flowStartMilliseconds", "start"], convert: [timestamp, timestamp] };
-const END: Field = { names: ["flowEndMilliseconds", "end"], convert: [timestamp, timestamp] };
+const BYTES_TOTAL: Field = { names: ["octetTotalCount"], convert: [counter] };
+const PACKETS_TOTAL: Field = { names: ["packetTotalCount"], convert: [counter] };
+const seconds = timeIn("seconds"), microseconds = timeIn("microseconds"), nanoseconds = timeIn("nanoseconds");
+const START: Field = {
+  names: ["flowStartNanoseconds", "flowStartMicroseconds", "flowStartMilliseconds", "start", "flowStartSeconds"],
+  convert: [nanoseconds, microseconds, timestamp, timestamp, seconds],
+  precisionMs: [1, 1, 1, 1, 1000],
+};
+const END: Field = {
+  names: ["flowEndNanoseconds", "flowEndMicroseconds", "flowEndMilliseconds", "end", "flowEndSeconds"],
+  convert: [nanoseconds, microseconds, timestamp, timestamp, seconds],
+  precisionMs: [1, 1, 1, 1, 1000],
+};
 
-function toRecord(wire: Wire, issues: FlowRecordIssue[]): FlowRecord | undefined {
+/** A delta count, or the total count standing in for it (see the module comment); the total is noted as ignored when both came. */
+function counterOf(wire: Wire, delta: Field, total: Field, issues: FlowRecordIssue[], ignored: string[]): Value | undefined {
+  const value = pick(wire, delta, issues);
+  const name = total.names[0];
+  if (wire[name] === undefined || wire[name] === null) return value;
+  const standIn = pick(wire, total, issues);
+  if (value === undefined && !delta.names.some((n) => wire[n] !== undefined && wire[n] !== null)) return standIn;
+  ignored.push(name);
+  return value;
+}
+
+function toRecord(wire: Wire, issues: FlowRecordIssue[], ignored: string[]): FlowRecord | undefined {
   const src = pick(wire, SRC, issues);
   const dst = pick(wire, DST, issues);
   const sport = pick(wire, SPORT, issues);
   const dport = pick(wire, DPORT, issues);
   const proto = pick(wire, PROTO, issues);
-  const bytes = pick(wire, BYTES, issues);
-  const packets = pick(wire, PACKETS, issues);
+  const bytes = counterOf(wire, BYTES, BYTES_TOTAL, issues, ignored);
+  const packets = counterOf(wire, PACKETS, PACKETS_TOTAL, issues, ignored);
   const start = pick(wire, START, issues);
   const end = pick(wire, END, issues);
   required(wire, src, SRC, issues);
   required(wire, dst, DST, issues);
   required(wire, proto, PROTO, issues);
-  required(wire, bytes, BYTES, issues);
-  required(wire, packets, PACKETS, issues);
+  if (wire.octetTotalCount == null) required(wire, bytes, BYTES, issues);
+  if (wire.packetTotalCount == null) required(wire, packets, PACKETS, issues);
   if (start !== undefined && end !== undefined && (end as number) < (start as number)) {
     const endName = sentName(wire, END);
     issues.push({
@@ -378,12 +407,13 @@ function toRecord(wire: Wire, issues: FlowRecordIssue[]): FlowRecord | undefined
 // ---- the fast path --------------------------------------------------------------------
 
 // Ingest validates every record of every batch. This one pass handles the common shape —
-// each field under one name, counters and times as JSON numbers — and gives up (undefined)
-// on anything else, which then takes the thorough path with its messages. It accepts only
-// what the thorough path accepts, with the same result; a property test checks that.
+// each field under one name, counters and times as JSON numbers, other IANA elements
+// ignored — and gives up (undefined) on anything else, which then takes the thorough path
+// with its messages. It accepts only what the thorough path accepts, with the same result
+// and the same ignored names; a property test checks that.
 const F_SRC = 1, F_DST = 2, F_SPORT = 4, F_DPORT = 8, F_PROTO = 16, F_BYTES = 32, F_PACKETS = 64, F_START = 128, F_END = 256;
-const F_IN = 512, F_OUT = 1024, F_SRC_AS = 2048, F_DST_AS = 4096;
-const F_REQUIRED = F_SRC | F_DST | F_PROTO | F_BYTES | F_PACKETS;
+const F_IN = 512, F_OUT = 1024, F_SRC_AS = 2048, F_DST_AS = 4096, F_BYTES_TOTAL = 8192, F_PACKETS_TOTAL = 16384;
+const F_REQUIRED = F_SRC | F_DST | F_PROTO;
 
 function fastAddress(parse: (text: string) => Uint8Array, v: unknown): Uint8Array | undefined {
   if (typeof v !== "string") return undefined;
@@ -396,17 +426,23 @@ function fastAddress(parse: (text: string) => Uint8Array, v: unknown): Uint8Arra
 
 const isUint = (v: unknown, max: number): v is number => typeof v === "number" && Number.isInteger(v) && v >= 0 && v <= max;
 const isCount = (v: unknown): v is number => typeof v === "number" && Number.isSafeInteger(v) && v >= 1;
-const isTime = (v: unknown): v is number => typeof v === "number" && Number.isSafeInteger(v) && v >= 0;
+const isTime = (v: unknown): v is number => typeof v === "number" && Number.isSafeInteger(v) && v >= 0 && v < END_OF_TIME_MS;
+// Epoch seconds, microseconds, nanoseconds as JSON numbers, to ms (NaN when the thorough path must decide).
+const fastSeconds = (v: unknown) => (typeof v === "number" && Number.isSafeInteger(v) && v >= 0 && v * 1000 < END_OF_TIME_MS ? v * 1000 : NaN);
+const fastMicros = (v: unknown) => (typeof v === "number" && Number.isSafeInteger(v) && v >= 0 && v / 1000 < END_OF_TIME_MS ? Math.floor(v / 1000) : NaN);
+const fastNanos = (v: unknown) => (typeof v === "number" && Number.isInteger(v) && v >= 0 && v / 1e6 < END_OF_TIME_MS ? Math.floor(v / 1e6) : NaN);
 
-function fastRecord(value: unknown): FlowRecord | undefined {
+function fastRecord(value: unknown, ignored: Map<string, number> | undefined): FlowRecord | undefined {
   if (typeof value !== "object" || value === null || Array.isArray(value)) return undefined;
   const o = value as Record<string, unknown>;
   let seen = 0;
   let src: Uint8Array | undefined;
   let dst: Uint8Array | undefined;
-  let sport = 0, dport = 0, proto = 0, bytes = 0, packets = 0;
+  let sport = 0, dport = 0, proto = 0, bytes = 0, packets = 0, bytesTotal = 0, packetsTotal = 0;
   let start: number | null = null, end: number | null = null;
   let ingress: number | null = null, egress: number | null = null, srcAs: number | null = null, dstAs: number | null = null;
+  // Names to count as ignored, noted only once the record is known to be valid.
+  let skipped: string[] | undefined;
   for (const key in o) {
     const v = o[key];
     if (v === null || v === undefined) continue;
@@ -423,20 +459,40 @@ function fastRecord(value: unknown): FlowRecord | undefined {
       case "proto": case "protocolIdentifier": bit = F_PROTO; if (!isUint(v, 255)) return undefined; proto = v; break;
       case "bytes": case "octetDeltaCount": bit = F_BYTES; if (!isCount(v)) return undefined; bytes = v; break;
       case "packets": case "packetDeltaCount": bit = F_PACKETS; if (!isCount(v)) return undefined; packets = v; break;
+      case "octetTotalCount": bit = F_BYTES_TOTAL; if (!isCount(v)) return undefined; bytesTotal = v; break;
+      case "packetTotalCount": bit = F_PACKETS_TOTAL; if (!isCount(v)) return undefined; packetsTotal = v; break;
       case "start": case "flowStartMilliseconds": bit = F_START; if (!isTime(v)) return undefined; start = v; break;
       case "end": case "flowEndMilliseconds": bit = F_END; if (!isTime(v)) return undefined; end = v; break;
+      case "flowStartSeconds": bit = F_START; start = fastSeconds(v); if (Number.isNaN(start)) return undefined; break;
+      case "flowEndSeconds": bit = F_END; end = fastSeconds(v); if (Number.isNaN(end)) return undefined; break;
+      case "flowStartMicroseconds": bit = F_START; start = fastMicros(v); if (Number.isNaN(start)) return undefined; break;
+      case "flowEndMicroseconds": bit = F_END; end = fastMicros(v); if (Number.isNaN(end)) return undefined; break;
+      case "flowStartNanoseconds": bit = F_START; start = fastNanos(v); if (Number.isNaN(start)) return undefined; break;
+      case "flowEndNanoseconds": bit = F_END; end = fastNanos(v); if (Number.isNaN(end)) return undefined; break;
       case "ingressInterface": bit = F_IN; if (!isUint(v, UNSIGNED32_MAX)) return undefined; ingress = v; break;
       case "egressInterface": bit = F_OUT; if (!isUint(v, UNSIGNED32_MAX)) return undefined; egress = v; break;
       case "bgpSourceAsNumber": bit = F_SRC_AS; if (!isUint(v, UNSIGNED32_MAX)) return undefined; srcAs = v; break;
       case "bgpDestinationAsNumber": bit = F_DST_AS; if (!isUint(v, UNSIGNED32_MAX)) return undefined; dstAs = v; break;
-      default: return undefined;
+      default:
+        if (!isIgnoredElement(key)) return undefined;
+        (skipped ??= []).push(key);
+        continue;
     }
     // A field under two names: leave the comparison and its message to the thorough path.
     if (seen & bit) return undefined;
     seen |= bit;
   }
   if ((seen & F_REQUIRED) !== F_REQUIRED) return undefined;
+  if (!(seen & F_BYTES)) {
+    if (!(seen & F_BYTES_TOTAL)) return undefined;
+    bytes = bytesTotal;
+  } else if (seen & F_BYTES_TOTAL) (skipped ??= []).push("octetTotalCount");
+  if (!(seen & F_PACKETS)) {
+    if (!(seen & F_PACKETS_TOTAL)) return undefined;
+    packets = packetsTotal;
+  } else if (seen & F_PACKETS_TOTAL) (skipped ??= []).push("packetTotalCount");
   if (start !== null && end !== null && end < start) return undefined;
+  if (skipped !== undefined && ignored !== undefined) for (const name of skipped) ignored.set(name, (ignored.get(name) ?? 0) + 1);
   return {
     src: src!,
     dst: dst!,
@@ -456,50 +512,61 @@ function fastRecord(value: unknown): FlowRecord | undefined {
 
 // ---- issues --------------------------------------------------------------------------
 
-function editDistance(a: string, b: string): number {
+/** Levenshtein distance, or `limit` as soon as it is sure to be at least that (a typo is a near miss). */
+function editDistance(a: string, b: string, limit: number): number {
+  if (Math.abs(a.length - b.length) >= limit) return limit;
   const row = Array.from({ length: b.length + 1 }, (_, j) => j);
   for (let i = 1; i <= a.length; i++) {
     let diagonal = row[0];
     row[0] = i;
+    let best = row[0];
     for (let j = 1; j <= b.length; j++) {
       const above = row[j];
       row[j] = Math.min(row[j] + 1, row[j - 1] + 1, diagonal + (a[i - 1] === b[j - 1] ? 0 : 1));
       diagonal = above;
+      if (row[j] < best) best = row[j];
     }
+    if (best >= limit) return limit;
   }
-  return row[b.length];
+  return Math.min(row[b.length], limit);
 }
 
-function unknownFieldMessage(key: string): string {
-  // A name from the IPFIX registry (the same table the IPFIX decoder reads) is no typo: say
-  // that Weir does not keep it rather than suggest a look-alike.
-  const element = elementByName(key);
-  if (element !== undefined) {
-    return element.enterprise === 0
-      ? `is an IPFIX element (id ${element.id}) that Weir does not store; leave it out`
-      : `is an RFC 5103 reverse element (enterprise ${element.enterprise}, id ${element.id}) that Weir does not store; send the reverse direction as a record of its own`;
-  }
+/** Every name a record may carry: Weir's fields and aliases, then the IANA element names (for suggestions). */
+let suggestionNames: string[] | undefined;
+
+function nearestName(key: string): string | undefined {
+  if (key.length > 40) return undefined;
+  suggestionNames ??= [...KNOWN_NAMES, ...elementNames()];
   const lower = key.toLowerCase();
   let best: string | undefined;
   let bestDistance = 3; // suggest only near misses
-  for (const name of key.length > 40 ? [] : KNOWN_NAMES) {
-    const d = name.toLowerCase() === lower ? 0 : editDistance(lower, name.toLowerCase());
+  for (const name of suggestionNames) {
+    const d = name.toLowerCase() === lower ? 0 : editDistance(lower, name.toLowerCase(), bestDistance);
     if (d < bestDistance) {
       best = name;
       bestDistance = d;
     }
   }
-  const hint = best === undefined ? "" : `; did you mean ${best}?`;
-  return `is not a known field (IPFIX element names and Weir aliases only)${hint}`;
+  return best;
 }
 
-function zodIssues(error: z.ZodError): FlowRecordIssue[] {
+function unknownFieldMessage(key: string, suggest: boolean): string {
+  const element = elementByName(key);
+  if (element !== undefined && element.enterprise !== 0) {
+    return `is an RFC 5103 reverse element (enterprise ${element.enterprise}, id ${element.id}): a Weir record carries one direction; send the reverse direction as a record of its own`;
+  }
+  const best = suggest ? nearestName(key) : undefined;
+  const hint = best === undefined ? "" : `; did you mean ${best}?`;
+  return `is neither a Weir field nor an IPFIX information element name (IANA registry)${hint}`;
+}
+
+function zodIssues(error: z.ZodError, suggest: boolean): FlowRecordIssue[] {
   const out: FlowRecordIssue[] = [];
   for (const issue of error.issues) {
     if (issue.code === "unrecognized_keys") {
       for (const key of issue.keys) {
         const path = key.length > 64 ? `${key.slice(0, 64)}…` : key;
-        out.push({ path, message: unknownFieldMessage(key) });
+        out.push({ path, message: unknownFieldMessage(key, suggest) });
       }
       continue;
     }
@@ -516,59 +583,83 @@ function zodIssues(error: z.ZodError): FlowRecordIssue[] {
 
 /**
  * Validates one flow record given under IPFIX names (RFC 7012) or Weir aliases and returns
- * it as a `FlowRecord`, or the issues found, each with the field name as sent.
+ * it as a `FlowRecord`, or the issues found, each with the field name as sent. IANA elements
+ * Weir does not store are ignored; when `ignored` is given, each one of a valid record adds
+ * 1 to its name's count there.
  *
  * @example parseFlowRecord({ src: "192.0.2.1", dst: "2001:db8::1", proto: 6, bytes: 1500, packets: 1 })
  *   // { ok: true, record: { src: ::ffff:192.0.2.1, dst: 2001:db8::1, sport: 0, dport: 0, proto: 6, bytes: 1500n, packets: 1n, start: null, … } }
  * @example parseFlowRecord({ src: "192.0.2.1", dst: "192.0.2.2", proto: 6, bytes: 0, packets: 1 })
  *   // { ok: false, issues: [{ path: "bytes", message: "must be at least 1: …" }] }
  */
-export function parseFlowRecord(value: unknown): FlowRecordResult {
-  const fast = fastRecord(value);
-  return fast === undefined ? parseFlowRecordThoroughly(value) : { ok: true, record: fast };
+export function parseFlowRecord(value: unknown, ignored?: Map<string, number>): FlowRecordResult {
+  const fast = fastRecord(value, ignored);
+  return fast === undefined ? parseFlowRecordThoroughly(value, ignored) : { ok: true, record: fast };
 }
 
 /**
  * The full path of parseFlowRecord: zod for structure, then conversion, with every issue
- * named. Exported so tests can check that the fast path agrees with it.
+ * named. Exported so tests can check that the fast path agrees with it. `suggest: false`
+ * leaves out the did-you-mean search (a batch stops listing details after 100).
  */
-export function parseFlowRecordThoroughly(value: unknown): FlowRecordResult {
-  const parsed = flowRecordWireSchema.safeParse(value);
-  if (!parsed.success) return { ok: false, issues: zodIssues(parsed.error) };
+export function parseFlowRecordThoroughly(value: unknown, ignored?: Map<string, number>, suggest = true): FlowRecordResult {
+  let input = value;
+  let skipped: string[] = [];
+  if (typeof value === "object" && value !== null && !Array.isArray(value)) {
+    for (const key of Object.keys(value)) {
+      if (isIgnoredElement(key)) skipped.push(key);
+    }
+    if (skipped.length > 0) {
+      const copy: Record<string, unknown> = { ...(value as Record<string, unknown>) };
+      for (const key of skipped) delete copy[key];
+      input = copy;
+      skipped = skipped.filter((key) => (value as Record<string, unknown>)[key] !== null && (value as Record<string, unknown>)[key] !== undefined);
+    }
+  }
+  const parsed = flowRecordWireSchema.safeParse(input);
+  if (!parsed.success) return { ok: false, issues: zodIssues(parsed.error, suggest) };
   const wire = parsed.data;
   const issues: FlowRecordIssue[] = [];
-  const record = toRecord(wire, issues);
-  return record === undefined ? { ok: false, issues } : { ok: true, record };
+  const record = toRecord(wire, issues, skipped);
+  if (record === undefined) return { ok: false, issues };
+  if (ignored !== undefined) for (const name of skipped) ignored.set(name, (ignored.get(name) ?? 0) + 1);
+  return { ok: true, record };
 }
 
 /**
  * Validates a batch of flow records. A batch is atomic (the API rejects it whole when any
  * record is invalid), so this returns either every record or the issues: `invalidCount`
  * counts every invalid record, `details` holds at most `maxBatchErrorDetails` issues, each
- * with the record's index and the field name as sent.
+ * with the record's index and the field name as sent. `ignoredFields` counts, per IANA
+ * element name, the records that carried it and Weir ignored (at most one entry per
+ * element of the registry, so it stays small).
  *
- * @example parseFlowBatch([{ src: "192.0.2.1", dst: "192.0.2.2", proto: 17, bytes: 80, packets: 1 }])
- *   // { ok: true, records: [ … one FlowRecord … ] }
+ * @example parseFlowBatch([{ src: "192.0.2.1", dst: "192.0.2.2", proto: 17, bytes: 80, packets: 1, vlanId: 10 }])
+ *   // { ok: true, records: [ … one FlowRecord … ], ignoredFields: { vlanId: 1 } }
  * @example parseFlowBatch([{ src: "192.0.2.1", dst: "192.0.2.2", proto: 17, bytes: 80, packets: 1, sprot: 53 }])
- *   // { ok: false, invalidCount: 1, details: [{ index: 0, path: "sprot", message: "is not a known field …; did you mean sport?" }] }
+ *   // { ok: false, invalidCount: 1, details: [{ index: 0, path: "sprot", message: "is neither a Weir field nor … ; did you mean sport?" }] }
  */
 export function parseFlowBatch(values: unknown[]): FlowBatchResult {
   const records: FlowRecord[] = [];
   const details: { index: number; path: string; message: string }[] = [];
+  const ignored = new Map<string, number>();
   let invalidCount = 0;
   for (let index = 0; index < values.length; index++) {
-    const result = parseFlowRecord(values[index]);
-    if (result.ok) {
-      if (invalidCount === 0) records.push(result.record);
+    const value = values[index];
+    const result = fastRecord(value, ignored);
+    const parsed: FlowRecordResult =
+      result !== undefined ? { ok: true, record: result } : parseFlowRecordThoroughly(value, ignored, details.length < maxBatchErrorDetails);
+    if (parsed.ok) {
+      if (invalidCount === 0) records.push(parsed.record);
       continue;
     }
     invalidCount++;
-    for (const issue of result.issues) {
+    for (const issue of parsed.issues) {
       if (details.length >= maxBatchErrorDetails) break;
       details.push({ index, path: issue.path, message: issue.message });
     }
   }
-  return invalidCount === 0 ? { ok: true, records } : { ok: false, invalidCount, details };
+  return invalidCount === 0 ? { ok: true, records, ignoredFields: Object.fromEntries(ignored) } : { ok: false, invalidCount, details };
 }
 
 function counterJson(value: bigint): number | string {

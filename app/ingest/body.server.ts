@@ -44,7 +44,7 @@ export interface ParseJob {
  * the server's and the route bundle's copies of its class.
  */
 export type ParseOutcome =
-  | { ok: true; packed: PackedFlows; ipfix?: IpfixFileSummary }
+  | { ok: true; packed: PackedFlows; ipfix?: IpfixFileSummary; ignoredFields?: Record<string, number> }
   | { ok: false; status: number; code: string; message: string; extra: Record<string, unknown> };
 
 /** Turns bodies into packed records: the parse-worker pool, or `parseFlowBody` in the calling thread. */
@@ -63,7 +63,7 @@ export async function readFlowBatch(
   request: Request,
   limits: BodyLimits,
   parser: FlowBodyParser,
-): Promise<{ packed: PackedFlows; ipfix?: IpfixFileSummary }> {
+): Promise<{ packed: PackedFlows; ipfix?: IpfixFileSummary; ignoredFields?: Record<string, number> }> {
   const type = (request.headers.get("content-type") ?? "").split(";")[0].trim().toLowerCase();
   const ndjson = NDJSON_TYPES.has(type);
   const ipfix = type === IPFIX_TYPE;
@@ -81,7 +81,7 @@ export async function readFlowBatch(
   const body = await readLimitedBody(request, limits.maxBodyBytes, () => tooLarge(limits.maxBodyBytes));
   const outcome = await parser.parse({ body, ndjson, ipfix, gzip: encoding === "gzip", limits });
   if (!outcome.ok) throw new ApiError(outcome.status, outcome.code, outcome.message, outcome.extra);
-  return { packed: outcome.packed, ipfix: outcome.ipfix };
+  return { packed: outcome.packed, ipfix: outcome.ipfix, ignoredFields: outcome.ignoredFields };
 }
 
 /**
@@ -99,7 +99,7 @@ export async function parseFlowBody(job: ParseJob): Promise<ParseOutcome> {
     const values = await decodeValues(job);
     const parsed = parseFlowBatch(values);
     if (!parsed.ok) throw invalidRecords(parsed.details, parsed.invalidCount);
-    return { ok: true, packed: packFlowRecords(parsed.records) };
+    return { ok: true, packed: packFlowRecords(parsed.records), ignoredFields: parsed.ignoredFields };
   } catch (error) {
     if (!(error instanceof ApiError)) throw error;
     return { ok: false, status: error.status, code: error.code, message: error.message, extra: error.extra };
@@ -178,7 +178,7 @@ function parseNdjson(text: string, maxRecords: number): unknown[] {
 }
 
 /** The 400 answer for a batch with invalid records; nothing of the batch is applied. */
-function invalidRecords(details: RecordProblem[], invalidCount: number): ApiError {
+export function invalidRecords(details: RecordProblem[], invalidCount: number): ApiError {
   return new ApiError(
     400,
     "invalid_records",

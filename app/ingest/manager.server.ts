@@ -7,6 +7,7 @@ import type { UniformSource } from "~/sampling/uniform";
 import { toColumns, type KeptColumns } from "~/query/columns";
 import { coordinatedUniform, flowKeyLength } from "~/sampling/coordinated";
 import { decodeKeptRow, decodeRowRecord, encodeKeptRows, flowKeyOfRow, KEPT_ROW_BYTES, packFlowRecords, ROW_BYTES_AT, ROW_PACKETS_AT, ROW_START_AT, type PackedFlows } from "./kept-codec";
+import { checkRowTimes, withoutRows } from "./time-check";
 import { windowStartOf } from "./window";
 
 /** A kept flow record and its row number inside its reservoir (-1 until stored). */
@@ -26,6 +27,13 @@ export interface TenantSampling {
    * record's u is then `coordinatedUniform(key, flow key)` instead of a random draw.
    */
   coordinationKey?: Uint8Array | null;
+  /**
+   * Days fine windows are kept before their roll-up and days any window is kept
+   * (tenants.retention_days, hourly_retention_days); without the latter, no retention bound
+   * applies on ingest.
+   */
+  retentionDays?: number;
+  hourlyRetentionDays?: number;
 }
 
 export interface IngestBatch {
@@ -37,6 +45,8 @@ export interface IngestBatch {
   idempotencyKey?: string;
   /** How the batch arrived, for Intake (default "json"). */
   source?: IngestSource;
+  /** IANA elements of JSON records that Weir ignored: name → records that carried it (parseFlowBatch). */
+  ignoredFields?: Record<string, number>;
 }
 
 export interface WindowAnswer {
@@ -54,6 +64,32 @@ export interface IngestAnswer {
   accepted: number;
   duplicate: boolean;
   windows: WindowAnswer[];
+  /** Accepted records that started before the open window (within retention). */
+  late: number;
+  /** Accepted records with a start or end ahead of the server clock, within INGEST_FUTURE_TOLERANCE_SECONDS. */
+  clockSkewed: number;
+  /** IANA elements the records carried that Weir does not store: name → records (JSON batches). */
+  ignoredFields: Record<string, number>;
+}
+
+/** Bounds on flow times at ingest (env INGEST_*; see time-check.ts). */
+export interface IngestTimeBounds {
+  /** Times after the clock plus this are refused. */
+  futureToleranceMs: number;
+  /** Times before this (epoch ms) are refused. */
+  floorMs: number;
+  /** Starts older than the tenant's hourly_retention_days are refused. */
+  refuseExpired: boolean;
+}
+
+/**
+ * A batch refused for its records' times: the route answers 400 with these details, matched
+ * by `code` (the error crosses from the server's modules into the route bundle).
+ */
+export interface TimesRefusedError extends Error {
+  code: "weir_times_refused";
+  details: { index: number; path: string; message: string }[];
+  invalidCount: number;
 }
 
 interface Live {
@@ -84,7 +120,17 @@ export interface ManagerOptions {
   maxLive?: number;
   /** Idempotency keys are remembered at least this long. */
   idempotencyTtlMs?: number;
+  /** The clock ingest checks times against; tests inject one. Default Date.now. */
+  now?: () => number;
+  /**
+   * Time sanity on ingest; absent (seed, benchmarks, tests of the sampling) checks nothing.
+   * JSON and IPFIX-file batches with a refused record are refused whole; batches from the
+   * listeners (no client to answer) drop those records and count them.
+   */
+  timeBounds?: IngestTimeBounds;
 }
+
+const DAY_MS = 86_400_000;
 
 // The newcomers of one batch and reservoir arrive as one blob of fixed-size rows
 // (kept-codec.ts) with consecutive seqs, and SQL splits it: binding each field
@@ -118,6 +164,11 @@ export class ReservoirManager {
     private readonly db: Db,
     private readonly options: ManagerOptions,
   ) {}
+
+  /** The clock the manager checks flow times against. */
+  now(): number {
+    return (this.options.now ?? Date.now)();
+  }
 
   /** Applies one validated batch and resolves once it is committed. */
   ingest(batch: IngestBatch): Promise<IngestAnswer> {
@@ -187,9 +238,27 @@ export class ReservoirManager {
       if (prior.rows.length > 0) return { ...(JSON.parse(String(prior.rows[0].response)) as IngestAnswer), duplicate: true };
     }
 
-    const { rows, count } = "rows" in batch.records ? batch.records : packFlowRecords(batch.records);
+    let { rows, count } = "rows" in batch.records ? batch.records : packFlowRecords(batch.records);
     if (count > MAX_BATCH_RECORDS) throw new RangeError(`a batch holds at most ${MAX_BATCH_RECORDS} records, got ${count}; split it`);
-    const view = new DataView(rows.buffer, rows.byteOffset, rows.byteLength);
+    let view = new DataView(rows.buffer, rows.byteOffset, rows.byteLength);
+    let late = 0, clockSkewed = 0, timeRefused = 0;
+    const bounds = this.options.timeBounds;
+    if (bounds !== undefined) {
+      const checked = this.checkTimes(view, count, tenant, receivedAt, bounds);
+      ({ late, clockSkewed } = checked);
+      timeRefused = checked.refused;
+      if (checked.refusedRows !== null) {
+        if (source === "json" || source === "ipfix-file") {
+          await this.countRefused(collector.id, checked.refused);
+          throw timesRefused(checked.details, checked.refused);
+        }
+        ({ rows, count } = withoutRows(rows, count, checked.refusedRows));
+        view = new DataView(rows.buffer, rows.byteOffset, rows.byteLength);
+      }
+    }
+    const ignoredFields = batch.ignoredFields ?? {};
+    let ignoredCount = 0;
+    for (const name in ignoredFields) ignoredCount += ignoredFields[name];
     // Group row numbers by window first, so each reservoir is loaded once.
     const byWindow = new Map<number, number[]>();
     for (let i = 0; i < count; i++) {
@@ -251,6 +320,9 @@ export class ReservoirManager {
       const answer: IngestAnswer = {
         accepted: count,
         duplicate: false,
+        late,
+        clockSkewed,
+        ignoredFields,
         windows: touched.map((live) => ({
           collector: collector.name,
           start: new Date(live.windowStart).toISOString(),
@@ -267,7 +339,12 @@ export class ReservoirManager {
           sql: "INSERT INTO ingest_batches (tenant_id, collector_id, idempotency_key, received_at, record_count, bytes, source, response) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
           args: [tenant.id, collector.id, idempotencyKey ?? null, receivedAt, count, batchBytes.toString(), source, JSON.stringify(answer)],
         },
-        { sql: "UPDATE collectors SET last_seen_at = ? WHERE id = ?", args: [receivedAt, collector.id] },
+        {
+          sql:
+            "UPDATE collectors SET last_seen_at = ?, late_records = late_records + ?, clock_skewed_records = clock_skewed_records + ?, " +
+            "time_refused_records = time_refused_records + ?, ignored_fields = ignored_fields + ? WHERE id = ?",
+          args: [receivedAt, late, clockSkewed, timeRefused, ignoredCount, collector.id],
+        },
       );
       await client.batch(statements, "write");
       for (const live of touched) this.settle(live, receivedAt);
@@ -278,6 +355,34 @@ export class ReservoirManager {
       // reload from the last committed state.
       for (const live of touched) this.forget(live);
       throw error;
+    }
+  }
+
+  /** Checks every row's times against the clock, the floor and the tenant's retention (time-check.ts). */
+  private checkTimes(view: DataView, count: number, tenant: TenantSampling, now: number, bounds: IngestTimeBounds) {
+    const hourlyDays = tenant.hourlyRetentionDays;
+    const expires = bounds.refuseExpired && hourlyDays !== undefined;
+    return checkRowTimes(view, count, {
+      now,
+      floorMs: bounds.floorMs,
+      futureToleranceMs: bounds.futureToleranceMs,
+      oldestStartMs: expires ? now - hourlyDays * DAY_MS : -Infinity,
+      retentionReason: expires
+        ? `windows are deleted ${hourlyDays} days after they end (the tenant's hourly retention, hourly_retention_days; fine windows roll up into hourly ones after ${tenant.retentionDays ?? hourlyDays} days, retention_days), so the next retention run would delete this record`
+        : "",
+      openWindowStart: windowStartOf(now, tenant.windowSeconds),
+    });
+  }
+
+  /**
+   * Adds a refused batch's records to the collector's count. Best effort, one small write:
+   * the batch itself is refused whatever happens here.
+   */
+  private async countRefused(collectorId: number, refused: number): Promise<void> {
+    try {
+      await this.db.$client.execute({ sql: "UPDATE collectors SET time_refused_records = time_refused_records + ? WHERE id = ?", args: [refused, collectorId] });
+    } catch {
+      // A busy database must not turn a 400 into a 503: the count is informative only.
     }
   }
 
@@ -387,6 +492,14 @@ export class ReservoirManager {
       args: [now - ttl],
     });
   }
+}
+
+function timesRefused(details: TimesRefusedError["details"], invalidCount: number): TimesRefusedError {
+  const error = new Error(`${invalidCount} records refused for their times`) as TimesRefusedError;
+  error.code = "weir_times_refused";
+  error.details = details;
+  error.invalidCount = invalidCount;
+  return error;
 }
 
 /** True for the abort of the version check in `persistStatements`. */

@@ -496,3 +496,11 @@ export function elementById(id: number, enterprise = 0): InformationElement | un
 export function elementByName(name: string): InformationElement | undefined {
   return byName.get(name);
 }
+
+/**
+ * Every IANA-assigned element name (enterprise 0), in id order: what a JSON record may carry.
+ * @example elementNames()[0] // "octetDeltaCount"
+ */
+export function elementNames(): string[] {
+  return [...ianaById.keys()].sort((a, b) => a - b).map((id) => ianaById.get(id)!.name);
+}

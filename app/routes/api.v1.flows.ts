@@ -1,5 +1,5 @@
 import { ApiError, authenticateKey, touchKey } from "~/auth/api-keys.server";
-import { readFlowBatch } from "~/ingest/body.server";
+import { invalidRecords, readFlowBatch, type RecordProblem } from "~/ingest/body.server";
 import { ParsePoolFull } from "~/ingest/parse-pool.server";
 import type { Route } from "./+types/api.v1.flows";
 
@@ -20,14 +20,16 @@ export async function action({ request, context }: Route.ActionArgs) {
     if (idempotencyKey !== undefined && !IDEMPOTENCY_KEY.test(idempotencyKey)) {
       throw new ApiError(400, "invalid_idempotency_key", "Idempotency-Key must be 1–200 printable ASCII characters without spaces.");
     }
-    const { packed, ipfix } = await readFlowBatch(request, { maxBodyBytes: env.INGEST_MAX_BODY_BYTES, maxRecords: env.INGEST_MAX_RECORDS }, parsePool);
+    const { packed, ipfix, ignoredFields } = await readFlowBatch(request, { maxBodyBytes: env.INGEST_MAX_BODY_BYTES, maxRecords: env.INGEST_MAX_RECORDS }, parsePool);
     const answer = await manager.ingest({
       tenant: principal.tenant,
       collector: principal.collector,
       records: packed,
-      receivedAt: Date.now(),
+      // The manager's clock: flow times are checked against it (tests inject one).
+      receivedAt: manager.now(),
       idempotencyKey,
       source: ipfix ? "ipfix-file" : "json",
+      ignoredFields,
     });
     await touchKey(db, principal.keyId);
     // What an IPFIX file held besides its records (unusable ones, sampling, enterprise elements).
@@ -43,6 +45,9 @@ export function loader() {
 
 function errorResponse(error: unknown, logger: Route.ActionArgs["context"]["logger"]): Response {
   if (error instanceof ApiError) return error.toResponse(error.status === 405 ? { Allow: "POST" } : undefined);
+  // Records refused for their times by the manager (app/ingest/time-check.ts), matched by code.
+  const refused = error as { code?: unknown; details?: RecordProblem[]; invalidCount?: number };
+  if (refused?.code === "weir_times_refused") return invalidRecords(refused.details ?? [], refused.invalidCount ?? 0).toResponse();
   if (error instanceof ParsePoolFull) {
     logger.warn({ limit: error.maxQueuedBytes }, "ingest: parse queue full");
     return new ApiError(

@@ -56,6 +56,8 @@ export interface StartServerOptions {
   logger?: Logger;
   /** Where priorities draw their uniforms; tests inject a seeded source. */
   uniform?: UniformSource;
+  /** The clock ingest checks flow times against (default Date.now); tests inject one. */
+  now?: () => number;
   /** Overrides of the roll-up/retention timer (interval from `env.RETENTION_INTERVAL_MINUTES`, first run after a minute); tests shorten them. */
   retention?: Partial<RetentionTimerOptions>;
   /** Overrides of the calibration timer (interval from `env.CALIBRATION_INTERVAL_MINUTES`, first run after a minute). */
@@ -120,6 +122,12 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
       node: env.NODE_ID,
       uniform: options.uniform,
       idempotencyTtlMs: env.IDEMPOTENCY_TTL_HOURS * 3600_000,
+      now: options.now,
+      timeBounds: {
+        futureToleranceMs: env.INGEST_FUTURE_TOLERANCE_SECONDS * 1000,
+        floorMs: env.INGEST_TIME_FLOOR,
+        refuseExpired: env.INGEST_REFUSE_EXPIRED,
+      },
     });
     // Started here, not in route code: the route bundle cannot point at a worker file.
     const pool = (parsePool = await ParsePool.start({ size: env.INGEST_PARSE_WORKERS, logger, maxQueuedBytes: env.INGEST_PARSE_QUEUE_BYTES }));

@@ -25,6 +25,11 @@ const fields: [string[], fc.Arbitrary<unknown>, boolean][] = [
   [["end", "flowEndMilliseconds"], fc.integer({ min: 0, max: 2e12 }), false],
   [["ingressInterface"], fc.integer({ min: 0, max: 2 ** 32 - 1 }), false],
   [["bgpDestinationAsNumber"], fc.integer({ min: 64496, max: 64511 }), false],
+  // Other time forms and the total counts (RFC 7012), mapped; other IANA elements, ignored and counted.
+  [["flowStartSeconds", "flowStartMicroseconds"], fc.integer({ min: 0, max: 2e9 }), false],
+  [["flowEndNanoseconds", "flowEndMicroseconds"], fc.integer({ min: 0, max: 2e18 }), false],
+  [["octetTotalCount", "packetTotalCount"], fc.integer({ min: 1, max: 2 ** 40 }), false],
+  [["tcpControlBits", "vlanId", "ipClassOfService"], fc.integer({ min: 0, max: 255 }), false],
 ];
 
 const record = fc
@@ -60,8 +65,11 @@ describe("the fast path of parseFlowRecord", () => {
     let refused = 0;
     fc.assert(
       fc.property(record, (value) => {
-        const result = parseFlowRecord(value);
-        expect(result).toEqual(parseFlowRecordThoroughly(value));
+        const ignoredFast = new Map<string, number>();
+        const ignoredThorough = new Map<string, number>();
+        const result = parseFlowRecord(value, ignoredFast);
+        expect(result).toEqual(parseFlowRecordThoroughly(value, ignoredThorough));
+        expect(ignoredFast).toEqual(ignoredThorough);
         if (result.ok) accepted++;
         else refused++;
       }),

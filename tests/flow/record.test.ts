@@ -138,7 +138,7 @@ describe("names: IPFIX elements and Weir aliases", () => {
   test("unknown fields are errors, with a suggestion for near misses", () => {
     // Weir's rule (design brief): strict names, so a typo cannot silently drop data.
     expect(issues({ ...aliasRecord, sprot: 53 })).toEqual([
-      { path: "sprot", message: "is not a known field (IPFIX element names and Weir aliases only); did you mean sport?" },
+      { path: "sprot", message: "is neither a Weir field nor an IPFIX information element name (IANA registry); did you mean sport?" },
     ]);
     expect(issues({ ...ipfixRecord, octetdeltacount: 5 })[0].message).toContain("did you mean octetDeltaCount?");
     expect(issues({ ...aliasRecord, colour: "blue" })[0].message).not.toContain("did you mean");
@@ -273,8 +273,8 @@ describe("timestamps", () => {
     expect(ok({ ...aliasRecord, start: "2024-05-01t02:00:00.250z", end: undefined }).start).toBe(utc + 250);
     // Fractions beyond milliseconds are truncated (Weir's rule; epoch milliseconds is the unit of flowStartMilliseconds).
     expect(ok({ ...aliasRecord, start: "2024-05-01T02:00:00.999999Z", end: undefined }).start).toBe(utc + 999);
-    // ISO 8601 reduced precision: seconds may be left out.
-    expect(ok({ ...aliasRecord, start: "2024-05-01T02:00Z", end: undefined }).start).toBe(utc);
+    // RFC 3339 §5.6 NOTE: a space may stand for "T".
+    expect(ok({ ...aliasRecord, start: "2024-05-01 02:00:00Z", end: undefined }).start).toBe(utc);
     // RFC 3339 §5.7 leap day.
     expect(ok({ ...aliasRecord, start: "2024-02-29T00:00:00Z", end: undefined }).start).toBe(Date.UTC(2024, 1, 29));
   });
@@ -287,15 +287,17 @@ describe("timestamps", () => {
   });
 
   test.each([
-    ["2024-05-01T02:00:00", "timezone"], // Weir's rule: local time is ambiguous
-    ["2024-05-01", "epoch milliseconds or ISO 8601"], // Weir's rule: a time of day is required
+    ["2024-05-01T02:00:00", "needs an offset"], // RFC 3339 §4.4: local time without an offset is no instant
+    ["2024-05-01", "needs a time and an offset"], // Weir's rule for records: a time of day is required
+    ["2024-05-01T02:00Z", "needs seconds"], // RFC 3339 §5.6 partial-time: seconds are not optional
     ["2023-02-29T00:00:00Z", "not a real date"], // 2023 is not a leap year (RFC 3339 §5.7)
     ["2024-13-01T00:00:00Z", "not a real date"], // RFC 3339 §5.6 date-month 01–12
     ["2024-05-01T24:00:00Z", "not a real date"], // RFC 3339 §5.6 time-hour 00–23
-    ["2024-05-01T02:00:00+2:00", "epoch milliseconds or ISO 8601"], // RFC 3339 §5.6 time-numoffset is ±hh:mm
+    ["2024-05-01T02:00:00+2:00", "must be RFC 3339"], // RFC 3339 §5.6 time-numoffset is ±hh:mm
     ["1969-12-31T23:59:59Z", "before 1970"], // Weir's rule: non-negative epoch milliseconds
     ["1970-01-01T00:30:00+01:00", "before 1970"], // the offset moves it before the epoch
-    ["2024-05-01T02:00:00Z trailing", "epoch milliseconds or ISO 8601"], // Weir's rule: nothing after the zone
+    ["2024-05-01T02:00:00Z trailing", "must be RFC 3339"], // RFC 3339 §5.6: nothing after time-offset
+    ["10000-01-01T00:00:00Z", "must be RFC 3339"], // RFC 3339 §5.6 date-fullyear is 4DIGIT
   ])("refuses %j (%s)", (text, reason) => {
     const found = issues({ ...aliasRecord, start: text, end: undefined });
     expect(found[0].path).toBe("start");
@@ -305,6 +307,19 @@ describe("timestamps", () => {
   test.each([[-1], [1.5], [2 ** 53]])("refuses the epoch value %j", (value) => {
     // Weir's rule: epoch milliseconds as a non-negative safe integer.
     expect(issues({ ...aliasRecord, start: value, end: undefined })[0].path).toBe("start");
+  });
+
+  test("refuses times RFC 3339 cannot write, from 10000-01-01 on, up to 2^53−1, with a unit hint where one fits", () => {
+    // ECMA-262 TimeClip ends Dates at 8.64e15 ms; between it and 2^53−1 a value used to pass and then fail to format.
+    for (const value of [253_402_300_800_000, 8.64e15, 8.64e15 + 1, Number.MAX_SAFE_INTEGER]) {
+      const found = issues({ ...aliasRecord, start: value, end: undefined });
+      expect(found).toHaveLength(1);
+      expect(found[0]).toMatchObject({ path: "start", message: expect.stringContaining("is after 9999-12-31T23:59:59Z") });
+    }
+    // 2024-05-01T02:00:00Z in epoch microseconds, sent as milliseconds: ÷1000 is the time meant.
+    const micro = issues({ ...aliasRecord, start: 1_714_528_800_000_000, end: undefined })[0].message;
+    expect(micro).toContain("as microseconds it would be 2024-05-01T02:00:00.000Z");
+    expect(ok({ ...aliasRecord, start: 253_402_300_799_999, end: undefined }).start).toBe(Date.UTC(9999, 11, 31, 23, 59, 59, 999));
   });
 
   test("end before start is an error at the end field", () => {
@@ -359,7 +374,7 @@ describe("parseFlowBatch", () => {
         {
           index: 2,
           path: "bytez",
-          message: "is not a known field (IPFIX element names and Weir aliases only); did you mean bytes?",
+          message: "is neither a Weir field nor an IPFIX information element name (IANA registry); did you mean bytes?",
         },
       ],
     });
@@ -367,7 +382,7 @@ describe("parseFlowBatch", () => {
 
   test("an empty batch is valid", () => {
     // Common practice: nothing to reject.
-    expect(parseFlowBatch([])).toEqual({ ok: true, records: [] });
+    expect(parseFlowBatch([])).toEqual({ ok: true, records: [], ignoredFields: {} });
   });
 });
 

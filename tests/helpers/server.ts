@@ -16,7 +16,7 @@ export interface TestServer {
 }
 
 export async function startTestServer(
-  options: { env?: Record<string, string>; uniform?: UniformSource; collect?: StartServerOptions["collect"] } = {},
+  options: { env?: Record<string, string>; uniform?: UniformSource; collect?: StartServerOptions["collect"]; now?: () => number } = {},
 ): Promise<TestServer> {
   const dir = mkdtempSync(join(tmpdir(), "weir-test-"));
   const server = await startServer({
@@ -25,8 +25,11 @@ export async function startTestServer(
       RETENTION_INTERVAL_MINUTES: "0",
       // Off too: calibration tests run the checks explicitly.
       CALIBRATION_INTERVAL_MINUTES: "0",
+      // Accepted however old: tests post invented records dated years back, and retention is off (above).
+      INGEST_REFUSE_EXPIRED: "false",
       ...options.env }),
     uniform: options.uniform,
+    now: options.now,
     // Listeners off unless a test asks for them (on free ports): fixed ports would collide between test files.
     collect: { ipfixUdpPort: null, netflowUdpPort: null, ipfixTcpPort: null, ...options.collect },
   });

@@ -443,6 +443,40 @@ function ipfixDumpFlow(fields: Map<number, string>, message: number, templateId:
   };
 }
 
+/** One data record as ipfixDump printed it: each field's element id, name and value text, in template order. */
+export interface DumpedRecord {
+  templateId: number;
+  fields: { id: number; name: string; value: string }[];
+}
+
+/**
+ * Every data record (flow and options records alike) of the datagrams as ipfixDump prints
+ * it, without interpretation: what a converter from IPFIX to JSON would start from.
+ */
+export async function ipfixDumpDataRecords(datagrams: readonly ReceivedDatagram[]): Promise<DumpedRecord[]> {
+  const dir = mkdtempSync(join(tmpdir(), "weir-ipfixdump-"));
+  try {
+    const filePath = join(dir, "export.ipfix");
+    writeFileSync(filePath, ipfixFile(datagrams));
+    const records: DumpedRecord[] = [];
+    let record: DumpedRecord | undefined;
+    for (const line of (await run(IPFIXDUMP, ["-i", filePath])).split("\n")) {
+      let m: RegExpExecArray | null;
+      if (/^--- /.test(line)) {
+        record = /^--- data record \d+ ---/.test(line) ? { templateId: NaN, fields: [] } : undefined;
+        if (record) records.push(record);
+      } else if (record && (m = /^\s*count:\s*\d+\s+tid:\s*(\d+)/.exec(line))) {
+        record.templateId = Number(m[1]);
+      } else if (record && (m = /^\s*\((\d+)\)\s*(?:\(S\))?\s*(\S+)\s*: (.*)$/.exec(line))) {
+        record.fields.push({ id: Number(m[1]), name: m[2], value: m[3].trim() });
+      }
+    }
+    return records;
+  } finally {
+    rmSync(dir, { recursive: true, force: true });
+  }
+}
+
 /** "2023-11-14 22:13:20.004" (ipfixDump prints UTC) → milliseconds since the epoch. */
 function ipfixDumpDateMillis(value: string): number {
   const millis = Date.parse(`${value.trim().replace(" ", "T")}Z`);
