@@ -92,7 +92,7 @@ export default function Slice() {
             <SliceForm state={state} onChange={update} collectors={collectors} weightAttribute={tenant.weightAttribute} onHold={setHeld} />
           </Panel>
           <section aria-label="Answer" className="min-w-0">
-            {held.length > 0 ? <NotAsked problems={held} /> : <SliceResults state={state} tenant={tenant.slug} windowSeconds={tenant.windowSeconds} />}
+            {held.length > 0 ? <NotAsked problems={held} /> : <SliceResults state={state} tenant={tenant.slug} windowSeconds={tenant.windowSeconds} onChange={update} />}
           </section>
         </div>
       )}

@@ -11,11 +11,12 @@
  * Pure module: no I/O, usable in the browser and on the server.
  */
 import type { EstimateAnswer, IntervalJson } from "../query/answer.ts";
+import type { RateJson } from "../query/rate.ts";
 
 /** One line's figures: the whole subset or one group, with the answer it belongs to. */
 export interface CsvLine {
   key: string;
-  figures: IntervalJson;
+  figures: IntervalJson & { rate?: RateJson };
   answer: EstimateAnswer;
 }
 
@@ -35,6 +36,19 @@ export const CSV_COLUMNS: readonly CsvColumn[] = [
   { name: "rough", value: (l) => String(l.figures.rough) },
   { name: "method", value: (l) => l.figures.method },
   { name: "rough_reason", value: (l) => l.figures.roughReason ?? "" },
+];
+
+/**
+ * With unit "rate", after the totals' columns: the rate of each line (the answer's `rate`,
+ * rate.ts) — the totals' figures × 8 / seconds for bytes (bit/s), / seconds otherwise.
+ */
+export const RATE_COLUMNS: readonly CsvColumn[] = [
+  { name: "rate_unit", value: (l) => l.figures.rate?.unit ?? "" },
+  { name: "rate_seconds", value: (l) => (l.figures.rate ? String(l.figures.rate.seconds) : "") },
+  { name: "rate", value: (l) => (l.figures.rate ? String(l.figures.rate.estimate) : "") },
+  { name: "rate_std_error", value: (l) => (l.figures.rate ? String(l.figures.rate.stdError) : "") },
+  { name: "rate_ci95_low", value: (l) => (l.figures.rate ? String(l.figures.rate.ci95[0]) : "") },
+  { name: "rate_ci95_high", value: (l) => (l.figures.rate ? String(l.figures.rate.ci95[1]) : "") },
 ];
 
 /** The trailing column that holds the caution (first data line) and is empty on the others. */
@@ -69,7 +83,11 @@ export function csvCaution(answer: EstimateAnswer, tenant: string, query: string
     `Weir estimates for tenant ${tenant} are statistical (priority sampling; 95% intervals: method normal = estimate ± 1.96 SE; ` +
     `gamma = Fay-Feuer gamma interval where the normal approximation would be poor, and then rough with its reason; ` +
     `no-match = no sampled record matched, and the interval is 0 up to a bound) and not exact accounting: for billing use exact counts.` +
-    `${answer.selection ? ` Groups: ${answer.selection.note}` : ""} Query: ${query}`
+    `${answer.selection ? ` Groups: ${answer.selection.note}` : ""}` +
+    (answer.p95
+      ? ` 95th percentile of ${answer.p95.windows} windows' rates (nearest rank): ${answer.p95.estimate} ${answer.p95.unit}, 95% interval ${answer.p95.ci95[0]} to ${answer.p95.ci95[1]}.`
+      : "") +
+    ` Query: ${query}`
   );
 }
 
@@ -78,10 +96,11 @@ export function csvCaution(answer: EstimateAnswer, tenant: string, query: string
  * in query-state.ts); every line ends in CRLF (RFC 4180 §2, rules 1 and 2).
  */
 export function estimatesCsv(answer: EstimateAnswer, tenant: string, query: string): string {
-  const header = [...CSV_COLUMNS.map((c) => c.name), NOTE_COLUMN];
+  const columns = answer.unit === "rate" ? [...CSV_COLUMNS, ...RATE_COLUMNS] : CSV_COLUMNS;
+  const header = [...columns.map((c) => c.name), NOTE_COLUMN];
   const lines: CsvLine[] = [{ key: TOTAL_KEY, figures: answer, answer }, ...answer.groups.map((g) => ({ key: g.key, figures: g, answer }))];
   const caution = csvCaution(answer, tenant, query);
-  const records = lines.map((line, i) => [...CSV_COLUMNS.map((c) => c.value(line)), i === 0 ? caution : ""]);
+  const records = lines.map((line, i) => [...columns.map((c) => c.value(line)), i === 0 ? caution : ""]);
   return [header, ...records].map((fields) => `${csvRecord(fields)}\r\n`).join("");
 }
 

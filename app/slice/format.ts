@@ -52,6 +52,56 @@ export function formatMetric(value: number, metric: Metric): string {
   return metric === "bytes" ? formatBytes(value) : formatCount(value, metric);
 }
 
+const BIT_RATE_UNITS = ["bit/s", "kbit/s", "Mbit/s", "Gbit/s", "Tbit/s", "Pbit/s", "Ebit/s"];
+const RATE_NOUNS: Record<Metric, string> = { bytes: "bit/s", packets: "pkt/s", flows: "flows/s" };
+
+/**
+ * A rate with a decimal SI prefix: bit/s for a bytes metric (the rate already counts bits;
+ * kbit/s, Mbit/s, Gbit/s with prefixes of 1000 as SI and IEC 80000-13 write them for bits per
+ * second, common practice for link speeds), pkt/s or flows/s otherwise.
+ *
+ * @example formatRate(12_345_678, "bytes")  // "12.3 Mbit/s"
+ * @example formatRate(950, "bytes")         // "950 bit/s"
+ * @example formatRate(2_500, "packets")     // "2.50 k pkt/s"
+ */
+export function formatRate(value: number, metric: Metric): string {
+  if (metric === "bytes") {
+    const { text, unit } = scaled(value, BIT_RATE_UNITS);
+    return `${text} ${unit}`;
+  }
+  return formatCount(value, RATE_NOUNS[metric]);
+}
+
+/**
+ * A rate interval with its unit written once when both ends share it.
+ *
+ * @example formatRateRange(9_800_000, 10_200_000, "bytes") // "9.80 – 10.2 Mbit/s"
+ */
+export function formatRateRange(low: number, high: number, metric: Metric): string {
+  return sharedUnitRange(formatRate(low, metric), formatRate(high, metric));
+}
+
+/** The exact rate for a tooltip: grouped digits, at most one decimal, and the unit. */
+export function exactRate(value: number, metric: Metric): string {
+  return exactMetric(value, RATE_NOUNS[metric]);
+}
+
+/**
+ * A rate for a chart axis: bit/s with its prefix, counts with the prefix only (the axis names the unit).
+ *
+ * @example axisRate(125_000_000, "bytes") // "125 Mbit/s"
+ */
+export function axisRate(value: number, metric: Metric): string {
+  if (metric === "bytes") return formatRate(value, metric);
+  return axisValue(value, metric);
+}
+
+/** "1.77 GB" and "1.78 GB" → "1.77 – 1.78 GB"; different units stay whole (the unit is what follows the number). */
+function sharedUnitRange(a: string, b: string): string {
+  const unitA = a.slice(a.indexOf(" "));
+  return unitA === b.slice(b.indexOf(" ")) ? `${a.slice(0, a.indexOf(" "))} – ${b}` : `${a} – ${b}`;
+}
+
 /**
  * An interval with its unit written once when both ends share it.
  *

@@ -10,7 +10,7 @@
  *
  * Pure module: no I/O, usable in the browser and on the server.
  */
-import { DEFAULT_PREFIX_LENGTH, DEFAULT_TOP, GROUP_BY, MAX_TOP, METRICS, RANK_MODES, type GroupByKind, type Metric, type RankMode } from "../query/request.ts";
+import { DEFAULT_PREFIX_LENGTH, DEFAULT_TOP, GROUP_BY, MAX_TOP, METRICS, RANK_MODES, UNITS, type GroupByKind, type Metric, type RankMode, type Unit } from "../query/request.ts";
 import { checkProtocolChip } from "./chips.ts";
 
 export const RANGE_PRESETS = {
@@ -44,6 +44,8 @@ export interface SliceState {
   top: number;
   /** How the top groups are chosen (selection.ts); sent only with a group-by. */
   rank: RankMode;
+  /** Volumes as totals over the range, or as rates (bit/s, pkt/s) with the windows' 95th percentile. */
+  unit: Unit;
 }
 
 export function defaultSliceState(): SliceState {
@@ -55,6 +57,7 @@ export function defaultSliceState(): SliceState {
     prefixLength: { ...DEFAULT_PREFIX_LENGTH },
     top: DEFAULT_TOP,
     rank: "estimate",
+    unit: "total",
   };
 }
 
@@ -113,7 +116,7 @@ function parsePrefixLength(text: string): { ipv4: number; ipv6: number } | null 
   return out;
 }
 
-const KNOWN = new Set<string>(["range", "from", "to", "metric", "groupBy", "prefixLength", "top", "rank", ...LIST_FIELDS]);
+const KNOWN = new Set<string>(["range", "from", "to", "metric", "groupBy", "prefixLength", "top", "rank", "unit", ...LIST_FIELDS]);
 
 /**
  * The Slice question in a page URL's search params.
@@ -189,6 +192,11 @@ export function parseSliceParams(params: URLSearchParams): ParsedSlice {
     if ((RANK_MODES as readonly string[]).includes(rank)) state.rank = rank as RankMode;
     else problems.push(`rank=${rank} is not one of ${RANK_MODES.join(", ")}; ranking on the estimates.`);
   }
+  const unit = one("unit");
+  if (unit !== null) {
+    if ((UNITS as readonly string[]).includes(unit)) state.unit = unit as Unit;
+    else problems.push(`unit=${unit} is not one of ${UNITS.join(", ")}; showing totals.`);
+  }
   return { state, problems };
 }
 
@@ -220,6 +228,7 @@ export function sliceParams(state: SliceState): URLSearchParams {
   }
   if (state.top !== DEFAULT_TOP) out.set("top", String(state.top));
   if (state.rank !== "estimate") out.set("rank", state.rank);
+  if (state.unit !== "total") out.set("unit", state.unit);
   return out;
 }
 
@@ -279,6 +288,7 @@ export function estimateSearch(
   out.set("top", String(override.top ?? state.top));
   // The split ranking is for the page's own groups, not for an override such as the time series.
   if (groupBy !== null && override.groupBy === undefined && state.rank !== "estimate") out.set("rank", state.rank);
+  if (state.unit === "rate") out.set("unit", "rate");
   return out;
 }
 
@@ -299,5 +309,6 @@ export function describeQuery(state: SliceState, from: number, to: number, metri
   if (state.groupBy === "src" || state.groupBy === "dst") parts.push(`prefixLength=ipv4:${state.prefixLength.ipv4} ipv6:${state.prefixLength.ipv6}`);
   parts.push(`top=${state.top}`);
   if (state.groupBy !== null && state.rank !== "estimate") parts.push(`rank=${state.rank}`);
+  if (state.unit === "rate") parts.push("unit=rate");
   return parts.join("; ");
 }

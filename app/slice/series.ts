@@ -5,7 +5,7 @@
  * Pure module: no I/O, usable in the browser and on the server.
  */
 import type { EstimateAnswer } from "../query/answer.ts";
-import { MAX_TOP } from "../query/request.ts";
+import { MAX_TOP, type Unit } from "../query/request.ts";
 
 export interface SeriesPoint {
   /** Window start, epoch ms. */
@@ -32,17 +32,23 @@ const MAX_GRID_POINTS = 20_000;
  * when the answer was cut at `MAX_TOP` groups that is no longer known, and such windows are
  * gaps (null) instead. Where the answer says longer windows answered (`resolution`: hourly
  * roll-ups of older data), the grid there steps by their length, so an hour is one point
- * rather than one point followed by eleven zeros.
+ * rather than one point followed by eleven zeros. With `unit` "rate" a point is the window's
+ * rate (bit/s, pkt/s, flows/s: the answer's `rate` of each group), its band scaled alike.
  *
  * @example buildSeries({ groups: [{ key: "1970-01-01T00:05:00.000Z", estimate: 10, ci95: [8, 12], rough: false, … }], from: "1970-01-01T00:00:00.000Z", to: "1970-01-01T00:10:00.000Z", windows: 1, … }, 300).points
  *   // [{ start: 0, estimate: 0, low: 0, high: 0, rough: false }, { start: 300000, estimate: 10, low: 8, high: 12, rough: false }]
  */
-export function buildSeries(answer: Pick<EstimateAnswer, "groups" | "from" | "to" | "windows"> & Partial<Pick<EstimateAnswer, "resolution">>, windowSeconds: number): Series {
+export function buildSeries(
+  answer: Pick<EstimateAnswer, "groups" | "from" | "to" | "windows"> & Partial<Pick<EstimateAnswer, "resolution">>,
+  windowSeconds: number,
+  unit: Unit = "total",
+): Series {
   const truncated = answer.groups.length >= MAX_TOP && answer.windows > answer.groups.length;
   const byStart = new Map<number, SeriesPoint>();
   for (const g of answer.groups) {
     const start = Date.parse(g.key);
-    if (Number.isFinite(start)) byStart.set(start, { start, estimate: g.estimate, low: g.ci95[0], high: g.ci95[1], rough: g.rough });
+    const shown = unit === "rate" && g.rate ? g.rate : g;
+    if (Number.isFinite(start)) byStart.set(start, { start, estimate: shown.estimate, low: shown.ci95[0], high: shown.ci95[1], rough: g.rough });
   }
   const from = Date.parse(answer.from);
   const to = Date.parse(answer.to);

@@ -62,6 +62,7 @@ const state: fc.Arbitrary<SliceState> = fc.record({
   prefixLength: fc.record({ ipv4: fc.integer({ min: 0, max: 32 }), ipv6: fc.integer({ min: 0, max: 128 }) }),
   top: fc.integer({ min: 1, max: MAX_TOP }),
   rank: fc.constantFrom("estimate" as const, "split" as const),
+  unit: fc.constantFrom("total" as const, "rate" as const),
 });
 
 // ---- properties -------------------------------------------------------------------------------
@@ -175,6 +176,7 @@ describe("the question as an estimate API call", () => {
         expect(q.where.dport.map((r) => (r.low === r.high ? String(r.low) : `${r.low}-${r.high}`))).toEqual(s.lists.dport);
         expect(q.where.proto.map(String)).toEqual(s.lists.proto);
         expect(q.where.collectors).toEqual(s.lists.collectors);
+        expect(q.unit).toBe(s.unit);
       }),
       { numRuns: 300 },
     );

@@ -42,10 +42,10 @@ export function SelectionNote({ answer }: { answer: EstimateAnswer }) {
 }
 
 /** A group's joint (Bonferroni) interval, lighter than its own 95% interval. */
-export function SimultaneousCell({ g, metric }: { g: GroupJson; metric: EstimateAnswer["metric"] }) {
+export function SimultaneousCell({ g, metric, rate = false }: { g: Pick<GroupJson, "ci95Simultaneous">; metric: EstimateAnswer["metric"]; rate?: boolean }) {
   return (
     <td className="py-1.5 pr-3 text-right text-river-400">
-      {g.ci95Simultaneous ? <IntervalValue low={g.ci95Simultaneous[0]} high={g.ci95Simultaneous[1]} metric={metric} /> : "–"}
+      {g.ci95Simultaneous ? <IntervalValue low={g.ci95Simultaneous[0]} high={g.ci95Simultaneous[1]} metric={metric} rate={rate} /> : "–"}
     </td>
   );
 }

@@ -2,7 +2,7 @@ import { useEffect, useMemo, useRef } from "react";
 import type uPlot from "uplot";
 import "uplot/dist/uPlot.min.css";
 import type { Metric } from "~/query/request";
-import { axisValue, formatMetric, formatMetricRange, formatUtc } from "~/slice/format";
+import { axisRate, axisValue, formatMetric, formatMetricRange, formatRate, formatRateRange, formatUtc } from "~/slice/format";
 import type { Series } from "~/slice/series";
 
 // Weir's palette (app.css): the estimate in sand, its interval in river, on river-950.
@@ -27,9 +27,9 @@ function utcTicks(_u: uPlot, splits: number[]): string[] {
 /**
  * The estimate per window as a line with its 95% interval shaded between the low and high
  * series (a uPlot band). uPlot draws on a canvas and needs the DOM, so it is loaded and
- * created in an effect, in the browser only.
+ * created in an effect, in the browser only. `rate`: the points are rates (bit/s, pkt/s, flows/s).
  */
-export function SeriesChart({ series, metric }: { series: Series; metric: Metric }) {
+export function SeriesChart({ series, metric, rate = false }: { series: Series; metric: Metric; rate?: boolean }) {
   const box = useRef<HTMLDivElement>(null);
   const data = useMemo<uPlot.AlignedData>(
     () => [
@@ -46,7 +46,7 @@ export function SeriesChart({ series, metric }: { series: Series; metric: Metric
     if (!el) return;
     let plot: uPlot | undefined;
     let cancelled = false;
-    const fmt = (_: uPlot, v: number | null) => (v == null ? "—" : formatMetric(v, metric));
+    const fmt = (_: uPlot, v: number | null) => (v == null ? "—" : rate ? formatRate(v, metric) : formatMetric(v, metric));
     import("uplot").then(({ default: UPlot }) => {
       if (cancelled) return;
       const options: uPlot.Options = {
@@ -70,8 +70,8 @@ export function SeriesChart({ series, metric }: { series: Series; metric: Metric
             ticks: { stroke: GRID, width: 1 },
             size: 64,
             font: FONT,
-            values: (_u, splits) => splits.map((v) => axisValue(v, metric)),
-            ...(metric === "bytes" ? {} : { label: metric, labelFont: FONT, labelSize: 18 }),
+            values: (_u, splits) => splits.map((v) => (rate ? axisRate(v, metric) : axisValue(v, metric))),
+            ...(metric === "bytes" ? {} : { label: rate ? `${metric}/s` : metric, labelFont: FONT, labelSize: 18 }),
           },
         ],
         cursor: { points: { size: 7 } },
@@ -85,7 +85,7 @@ export function SeriesChart({ series, metric }: { series: Series; metric: Metric
       resize.disconnect();
       plot?.destroy();
     };
-  }, [data, metric, series.points.length]);
+  }, [data, metric, rate, series.points.length]);
 
   // uPlot's own legend styles are for light pages; quieter type here.
   return (
@@ -99,7 +99,9 @@ export function SeriesChart({ series, metric }: { series: Series; metric: Metric
 }
 
 /** What the chart shows, in words: for screen readers and for anyone who wants the figures. */
-export function SeriesSummary({ series, metric }: { series: Series; metric: Metric }) {
+export function SeriesSummary({ series, metric, rate = false }: { series: Series; metric: Metric; rate?: boolean }) {
+  const format = rate ? formatRate : formatMetric;
+  const formatRange = rate ? formatRateRange : formatMetricRange;
   const known = series.points.filter((p) => p.estimate !== null) as (Series["points"][number] & { estimate: number; low: number; high: number })[];
   if (known.length === 0) return <p className="text-sm text-river-300">No windows in this range.</p>;
   const peak = known.reduce((a, b) => (b.estimate > a.estimate ? b : a));
@@ -109,22 +111,22 @@ export function SeriesSummary({ series, metric }: { series: Series; metric: Metr
   return (
     <div className="flex flex-col gap-2 text-sm text-river-200">
       <p>
-        Estimate per window over {known.length} window{known.length === 1 ? "" : "s"}, {formatUtc(series.points[0].start)} to{" "}
+        {rate ? "Rate" : "Estimate"} per window over {known.length} window{known.length === 1 ? "" : "s"}, {formatUtc(series.points[0].start)} to{" "}
         {formatUtc(series.points[series.points.length - 1].start)}. The shaded band is the 95% interval of each window.
       </p>
       <dl className="grid grid-cols-[auto_1fr] gap-x-3 gap-y-1">
         <dt className="text-river-300">Highest</dt>
         <dd>
-          <span className="font-mono text-river-50">{formatMetric(peak.estimate, metric)}</span> (95% interval {formatMetricRange(peak.low, peak.high, metric)}) at{" "}
+          <span className="font-mono text-river-50">{format(peak.estimate, metric)}</span> (95% interval {formatRange(peak.low, peak.high, metric)}) at{" "}
           {formatUtc(peak.start)}
         </dd>
         <dt className="text-river-300">Lowest</dt>
         <dd>
-          <span className="font-mono text-river-50">{formatMetric(low.estimate, metric)}</span> at {formatUtc(low.start)}
+          <span className="font-mono text-river-50">{format(low.estimate, metric)}</span> at {formatUtc(low.start)}
         </dd>
         <dt className="text-river-300">Mean</dt>
         <dd>
-          <span className="font-mono text-river-50">{formatMetric(mean, metric)}</span> per window
+          <span className="font-mono text-river-50">{format(mean, metric)}</span> {rate ? "mean of the windows' rates" : "per window"}
         </dd>
       </dl>
       {rough > 0 ? <p className="text-xs text-river-300">{rough} window{rough === 1 ? " has a rough interval" : "s have rough intervals"}: the normal approximation would be poor there (few uncertain sampled records, or one dominating), so a gamma bound answers.</p> : null}

@@ -3,22 +3,23 @@ import { ErrorState } from "~/components/ui";
 import type { Counter, EstimateAnswer } from "~/query/answer";
 import type { Metric } from "~/query/request";
 import type { FetchError } from "~/slice/fetch-json";
-import { counterValue, exactMetric, formatMetric, formatMetricRange } from "~/slice/format";
+import { counterValue, exactMetric, exactRate, formatMetric, formatMetricRange, formatRate, formatRateRange } from "~/slice/format";
 
-/** A figure in short human units, with the exact number in its tooltip. */
-export function MetricValue({ value, metric, className = "" }: { value: number; metric: Metric; className?: string }) {
+/** A figure in short human units, with the exact number in its tooltip; `rate`: a rate of the metric (bit/s, pkt/s, flows/s). */
+export function MetricValue({ value, metric, rate = false, className = "" }: { value: number; metric: Metric; rate?: boolean; className?: string }) {
   return (
-    <span className={`font-mono ${className}`} title={exactMetric(value, metric)}>
-      {formatMetric(value, metric)}
+    <span className={`font-mono ${className}`} title={rate ? exactRate(value, metric) : exactMetric(value, metric)}>
+      {rate ? formatRate(value, metric) : formatMetric(value, metric)}
     </span>
   );
 }
 
 /** A 95% interval, its unit written once, the exact bounds in its tooltip. */
-export function IntervalValue({ low, high, metric, className = "" }: { low: number; high: number; metric: Metric; className?: string }) {
+export function IntervalValue({ low, high, metric, rate = false, className = "" }: { low: number; high: number; metric: Metric; rate?: boolean; className?: string }) {
+  const exact = rate ? exactRate : exactMetric;
   return (
-    <span className={`font-mono whitespace-nowrap ${className}`} title={`95% interval: ${exactMetric(low, metric)} to ${exactMetric(high, metric)}`}>
-      {formatMetricRange(low, high, metric)}
+    <span className={`font-mono whitespace-nowrap ${className}`} title={`95% interval: ${exact(low, metric)} to ${exact(high, metric)}`}>
+      {rate ? formatRateRange(low, high, metric) : formatMetricRange(low, high, metric)}
     </span>
   );
 }
