@@ -22,9 +22,16 @@ export const DEMO_RIVERLINE_KEY = "weir_de000001_DEMO-ONLY-riverline-pop-north-0
 /** Query only, for tributary (its collector office-gw). */
 export const DEMO_TRIBUTARY_KEY = "weir_de000002_DEMO-ONLY-tributary-office-gw-01";
 
+/**
+ * Ingest only, for riverline's collector north-archive: the README imports pop-north's
+ * sample file with it (a key imports only into its own collector).
+ */
+export const DEMO_ARCHIVE_KEY = "weir_de000003_DEMO-ONLY-riverline-archive-0001";
+
 export const DEMO_KEYS: readonly DemoKey[] = [
   { tenant: "riverline", collector: "pop-north", scope: "both", key: DEMO_RIVERLINE_KEY },
   { tenant: "tributary", collector: "office-gw", scope: "query", key: DEMO_TRIBUTARY_KEY },
+  { tenant: "riverline", collector: "north-archive", scope: "ingest", key: DEMO_ARCHIVE_KEY },
 ];
 
 /** The keys as lines for a terminal, with the warning that belongs beside them. */

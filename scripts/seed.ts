@@ -4,7 +4,7 @@
 // Demo data only: it refuses to run with NODE_ENV=production.
 import { pathToFileURL } from "node:url";
 import { parseArgs } from "node:util";
-import { inArray } from "drizzle-orm";
+import { eq, inArray } from "drizzle-orm";
 import { createApiKey, scopesFor } from "~/auth/api-keys.server";
 import { closeDefaultDb, getDb, type Db } from "~/db/client.server";
 import { runMigrations } from "~/db/migrate.server";
@@ -80,7 +80,15 @@ export async function seedDemo(db: Db, options: SeedOptions): Promise<SeedResult
     const present = await db.select({ slug: tenants.slug }).from(tenants).where(inArray(tenants.slug, DEMO_SLUGS));
     if (present.length > 0) {
       const keys = await db.select({ prefix: apiKeys.prefix }).from(apiKeys).where(inArray(apiKeys.prefix, DEMO_KEYS.map((k) => keyPrefix(k.key))));
-      if (present.length === DEMO_SLUGS.length && keys.length === DEMO_KEYS.length) {
+      if (present.length === DEMO_SLUGS.length && keys.length > 0) {
+        // A demo seeded before a key was added to DEMO_KEYS gets the new key, nothing else.
+        const have = new Set(keys.map((k) => k.prefix));
+        for (const demo of DEMO_KEYS.filter((k) => !have.has(keyPrefix(k.key)))) {
+          const [tenant] = await db.select({ id: tenants.id }).from(tenants).where(eq(tenants.slug, demo.tenant));
+          const collector = await ensureCollector(db, tenant.id, demo.collector);
+          await createApiKey(db, { tenantId: tenant.id, collectorId: collector.id, scopes: scopesFor(demo.scope), createdBy: "seed (demo data)", key: demo.key });
+          log(`Added the demo key of ${demo.tenant}/${demo.collector}.`);
+        }
         log(`Demo tenants ${DEMO_SLUGS.join(", ")} already exist; nothing to do (--reset wipes and reseeds them).`);
         return { status: "present", collectors: [] };
       }

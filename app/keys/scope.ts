@@ -6,7 +6,7 @@ export type ScopeChoice = (typeof SCOPE_CHOICES)[number];
 export const SCOPE_HELP: Record<ScopeChoice, { label: string; help: string }> = {
   ingest: {
     label: "Ingest",
-    help: "Posts flow records to /api/v1/flows as this collector. For exporters, collectors and replay scripts.",
+    help: "Posts flow records to /api/v1/flows and imports sample files (/api/v1/samples) into this collector only, never another. For exporters, collectors and replay scripts.",
   },
   query: {
     label: "Query",

@@ -198,17 +198,19 @@ function auditStatement(tenantId: number, actor: MergeActor, action: string, tar
 }
 
 /**
- * Every collector of the tenant for a picker, by name: stream collectors, and merges with
- * the inputs they hold samples of (a merge counts only when named, never with its inputs).
+ * Every collector of the tenant for a picker, by name: stream collectors, merges with the
+ * inputs they hold samples of, and copies (filled by sample-file imports) with the collectors
+ * they came from. Merges and copies count only when named, never with what they hold.
  */
-export async function collectorChoices(db: Db, tenantId: number): Promise<{ name: string; kind: "stream" | "merge"; inputs: string[] }[]> {
+export async function collectorChoices(db: Db, tenantId: number): Promise<{ name: string; kind: "stream" | "merge" | "copy"; inputs: string[] }[]> {
   const found = await db.$client.execute({
-    sql: "SELECT c.name, c.kind, m.inputs FROM collectors c LEFT JOIN merges m ON m.collector_id = c.id WHERE c.tenant_id = ? ORDER BY c.name",
+    sql: "SELECT c.name, c.kind, m.inputs, c.copy_of FROM collectors c LEFT JOIN merges m ON m.collector_id = c.id WHERE c.tenant_id = ? ORDER BY c.name",
     args: [tenantId],
   });
-  return found.rows.map((row) => ({
-    name: String(row[0]),
-    kind: String(row[1]) === "merge" ? ("merge" as const) : ("stream" as const),
-    inputs: row[2] === null ? [] : (JSON.parse(String(row[2])) as string[]),
-  }));
+  return found.rows.map((row) => {
+    const name = String(row[0]);
+    if (String(row[1]) === "merge") return { name, kind: "merge" as const, inputs: row[2] === null ? [] : (JSON.parse(String(row[2])) as string[]) };
+    if (row[3] !== null) return { name, kind: "copy" as const, inputs: JSON.parse(String(row[3])) as string[] };
+    return { name, kind: "stream" as const, inputs: [] };
+  });
 }

@@ -2,6 +2,8 @@ import type { InValue } from "@libsql/client";
 import { ApiError } from "~/auth/api-keys.server";
 import type { Db } from "~/db/client.server";
 import { mergeWindowStates, readStoredWindows, type StoredWindow, type WindowState } from "~/samples/store.server";
+import { copiesAndMerges } from "~/query/collector-kinds.server";
+import { overlapsOf } from "~/query/collector-rule";
 import type { MergeRequest } from "./request.server";
 
 /**
@@ -56,9 +58,10 @@ export interface MergePlan {
  * The ids of the named collectors, which must all be stream collectors of the tenant.
  * Throws ApiError 422 naming every unknown collector and every merge among them: a merge
  * of merges would count the shared inputs' records twice whenever they overlap, and its
- * provenance would no longer say which streams went in.
+ * provenance would no longer say which streams went in. A copy with its origin (or two
+ * copies of one origin) is refused the same way (`copy_with_origin`) unless `allowOverlap`.
  */
-export async function resolveInputs(db: Db, tenantId: number, names: readonly string[]): Promise<number[]> {
+export async function resolveInputs(db: Db, tenantId: number, names: readonly string[], allowOverlap = false): Promise<number[]> {
   const found = await db.$client.execute({
     sql: `SELECT c.id, c.name, c.kind, m.inputs FROM collectors c LEFT JOIN merges m ON m.collector_id = c.id WHERE c.tenant_id = ? AND c.name IN (${names.map(() => "?").join(", ")})`,
     args: [tenantId, ...names],
@@ -81,6 +84,14 @@ export async function resolveInputs(db: Db, tenantId: number, names: readonly st
     const more = details.length > 1 ? ` (and ${details.length - 1} more)` : "";
     throw new ApiError(422, "invalid_collectors", `Cannot merge: ${details[0].path}: ${details[0].message}${more}.`, { details });
   }
+  // A copy (imported sample files) with its origin, or two copies of one origin: the merge
+  // rule (DLT 2007) assumes disjoint streams, so their common records would count twice.
+  const overlaps = overlapsOf(names, await copiesAndMerges(db, tenantId));
+  if (overlaps.length > 0 && !allowOverlap) {
+    const [first] = overlaps;
+    const message = `${first.message}; merge one of them, or send allowOverlap: true if you know their records are disjoint`;
+    throw new ApiError(422, first.code, `Cannot merge: collectors: ${message}.`, { details: overlaps.map((o) => ({ path: "collectors", message: o.message })) });
+  }
   return names.map((name) => byName.get(name)!.id);
 }
 
@@ -95,7 +106,7 @@ export async function resolveInputs(db: Db, tenantId: number, names: readonly st
  * than MAX_KEPT_PER_MERGE kept records.
  */
 export async function planMerge(db: Db, tenant: MergeTenant, request: MergeRequest): Promise<MergePlan> {
-  const collectorIds = await resolveInputs(db, tenant.id, request.collectors);
+  const collectorIds = await resolveInputs(db, tenant.id, request.collectors, request.allowOverlap);
   const sampleSize = request.sampleSize ?? tenant.sampleSize;
   const slices = await readSlices(db, tenant.id, collectorIds, request.from, request.to);
 

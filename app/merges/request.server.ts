@@ -15,6 +15,8 @@ export interface MergeRequest {
   to: number;
   sampleSize?: number;
   preview: boolean;
+  /** Merge a copy with its origin (or two copies of one origin) anyway; absent or false: 422 copy_with_origin. */
+  allowOverlap?: boolean;
 }
 
 /** One problem with a request; `path` names the field as the client wrote it (`collectors[2]`). */
@@ -25,7 +27,7 @@ export interface MergeIssue {
 
 export type ParsedMerge = { ok: true; request: MergeRequest } | { ok: false; message: string; details: MergeIssue[] };
 
-const FIELDS = ["name", "collectors", "from", "to", "sampleSize", "preview"] as const;
+const FIELDS = ["name", "collectors", "from", "to", "sampleSize", "preview", "allowOverlap"] as const;
 
 /**
  * The body of `POST /api/v1/merge` and of the console's Merge form: the name the merge is
@@ -44,6 +46,7 @@ export const mergeRequestSchema = z
       to: requestTimeSchema,
       sampleSize: z.int({ error: "must be a whole number from 16 to 65536" }).pipe(sampleSizeSchema).optional(),
       preview: z.boolean({ error: "must be true or false" }).default(false),
+      allowOverlap: z.boolean({ error: "must be true or false (true merges a copy with its origin anyway)" }).default(false),
     },
     { error: `the request must be a JSON object with ${FIELDS.join(", ")}` },
   )

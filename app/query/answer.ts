@@ -10,6 +10,7 @@ import type { ScanResult } from "./scan.ts";
 import { simultaneousInterval, type SelectionJson } from "./selection.ts";
 import type { RollUpDisclosure } from "./rollup-disclosure.ts";
 import { rateJson, type PercentileJson, type RateJson } from "./rate.ts";
+import type { CollectorRuleJson } from "./collector-rule.ts";
 
 /** An estimate with its error: standard error, 95% interval, kept records behind it, rough flag. */
 export interface IntervalJson {
@@ -89,6 +90,8 @@ export interface EstimateAnswer extends IntervalJson {
   rate?: RateJson;
   /** With unit "rate" and at least one window: the 95th percentile of the windows' rates (rate.ts). */
   p95?: PercentileJson;
+  /** Which collectors counted and why: copies and merges left out, or counted together on request (collector-rule.ts). */
+  collectorRule?: CollectorRuleJson;
 }
 
 /**

@@ -2,6 +2,8 @@ import type { InStatement, InValue, Row } from "@libsql/client";
 import { ApiError } from "~/auth/api-keys.server";
 import type { Db } from "~/db/client.server";
 import type { ReservoirManager } from "~/ingest/manager.server";
+import { collectorRule, overlapsOf, type CollectorInfo, type CollectorOverlap } from "./collector-rule";
+import { copiesAndMerges } from "./collector-kinds.server";
 import { buildAnswer, largestRatio, unseenRatio, type EstimateAnswer, type WindowSpan } from "./answer";
 import type { KeptColumns } from "./columns";
 import { keptRowsToColumns } from "~/ingest/kept-codec";
@@ -75,7 +77,8 @@ export interface ReservoirRow {
  */
 export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, query: EstimateQuery): Promise<EstimateAnswer> {
   const metric = query.metric ?? tenant.weightAttribute;
-  await refuseOverlap(ctx.db, tenant.id, query.where.collectors);
+  const special = await copiesAndMerges(ctx.db, tenant.id);
+  const overlaps = refuseOverlap(special, query.where.collectors, query.allowOverlap);
   const rows = await reservoirsInRange(ctx.db, tenant.id, query);
 
   const keptBound = rows.reduce((sum, r) => sum + Math.min(r.k, r.records), 0);
@@ -131,33 +134,41 @@ export async function runEstimate(ctx: EstimateContext, tenant: EstimateTenant, 
     },
   });
   discloseRollUps(answer.resolution, rows, tenant);
+  answer.collectorRule = collectorRule(query.where.collectors, await excludedInRange(ctx.db, tenant.id, query, special), overlaps);
   return answer;
 }
 
 /**
- * A merged collector holds a sample of its inputs' records: naming it together with one of
- * its inputs, or two merges that share an input, would count those records twice.
+ * Copies and merges hold samples of records counted in other collectors: naming one together
+ * with a collector whose records it holds (a copy with its origin, a merge with an input, two
+ * of them sharing one) would count those records twice. Refused with 422 unless the request
+ * says `allowOverlap`; then the overlaps are returned for the answer to state.
  */
-async function refuseOverlap(db: Db, tenantId: number, names: readonly string[]): Promise<void> {
-  if (names.length < 2) return;
-  const found = await db.$client.execute({
-    sql: `SELECT c.name, m.inputs FROM merges m JOIN collectors c ON c.id = m.collector_id WHERE m.tenant_id = ? AND c.name IN (${names.map(() => "?").join(", ")})`,
-    args: [tenantId, ...names],
+function refuseOverlap(special: CollectorInfo[], names: readonly string[], allowOverlap: boolean): CollectorOverlap[] {
+  const overlaps = overlapsOf(names, special);
+  if (overlaps.length === 0 || allowOverlap) return overlaps;
+  const [first] = overlaps;
+  const rule =
+    first.code === "copy_with_origin"
+      ? "a copy counts only alone or with collectors whose records it does not hold"
+      : "a merge counts only alone or with collectors it does not merge";
+  const message = `${first.message} (${rule}). Name one of them, or send allowOverlap: true to count them together anyway`;
+  throw new ApiError(422, first.code, `Invalid query: where.collectors: ${message}.`, {
+    details: overlaps.map((o) => ({ path: "where.collectors", message: o.message })),
   });
-  const claimedBy = new Map<string, string>();
-  for (const row of found.rows) {
-    const merge = String(row[0]);
-    for (const input of JSON.parse(String(row[1])) as string[]) {
-      const other = names.includes(input) ? input : claimedBy.get(input);
-      if (other !== undefined) {
-        const message = names.includes(input)
-          ? `names both ${merge} and ${input}, which ${merge} merges: their records would count twice. Name one of them`
-          : `names both ${merge} and ${other}, which both merge ${input}: its records would count twice. Name one of them`;
-        throw new ApiError(422, "overlapping_collectors", `Invalid query: where.collectors ${message}.`, { details: [{ path: "where.collectors", message }] });
-      }
-      claimedBy.set(input, merge);
-    }
-  }
+}
+
+/** With no collector named: the copies and merges holding windows in range, which the question left out. */
+async function excludedInRange(db: Db, tenantId: number, query: EstimateQuery, special: CollectorInfo[]): Promise<CollectorInfo[]> {
+  if (query.where.collectors.length > 0 || special.length === 0) return [];
+  const found = await db.$client.execute({
+    sql:
+      "SELECT DISTINCT c.name FROM reservoirs r JOIN collectors c ON c.id = r.collector_id AND c.tenant_id = r.tenant_id " +
+      "WHERE r.tenant_id = ? AND r.window_start >= ? AND r.window_start < ? AND r.records > 0 AND (c.kind = 'merge' OR c.copy_of IS NOT NULL)",
+    args: [tenantId, query.from, query.to],
+  });
+  const inRange = new Set(found.rows.map((row) => String(row[0])));
+  return special.filter((c) => inRange.has(c.name)).sort((a, b) => (a.name < b.name ? -1 : 1));
 }
 
 /** The reservoir rows with data in range: one statement on the (tenant_id, window_start) index. */
@@ -169,8 +180,9 @@ async function reservoirsInRange(db: Db, tenantId: number, query: EstimateQuery)
     byName = ` AND c.name IN (${names.map(() => "?").join(", ")})`;
     args.push(...names);
   } else {
-    // A merged collector's records are already counted in its inputs: only by name.
-    byName = " AND c.kind = 'stream'";
+    // A merged collector's records are already counted in its inputs, a copy's maybe in its
+    // origins (collector-rule.ts): only by name.
+    byName = " AND c.kind = 'stream' AND c.copy_of IS NULL";
   }
   const found = await db.$client.execute({
     sql:

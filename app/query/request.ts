@@ -64,6 +64,8 @@ export interface EstimateRequest {
   top?: number;
   /** With groupBy: how the top groups are chosen; default "estimate". */
   rank?: RankMode;
+  /** Count named collectors that hold the same records (a copy and its origin, a merge and an input) together anyway; default false (422). */
+  allowOverlap?: boolean;
   /** "rate" adds rates per second and the windows' 95th percentile beside the totals; default "total". */
   unit?: Unit;
 }
@@ -78,6 +80,8 @@ export interface EstimateQuery {
   groupBy: GroupBy | null;
   top: number;
   rank: RankMode;
+  /** Named collectors holding the same records are counted together instead of refused (collector-rule.ts). */
+  allowOverlap: boolean;
   /** "rate": the answer carries rates beside the totals; absent means "total". */
   unit?: Unit;
 }
@@ -192,9 +196,10 @@ const requestObject = z.strictObject(
       .max(MAX_TOP, { error: `must be a whole number from 1 to ${MAX_TOP}` })
       .optional(),
     rank: z.enum(RANK_MODES, { error: `must be one of ${RANK_MODES.join(", ")} (split: rank on one half of the kept records, estimate on the other)` }).optional(),
+    allowOverlap: z.boolean({ error: "must be true or false (true counts named collectors that hold the same records together anyway)" }).optional(),
     unit: z.enum(UNITS, { error: `must be one of ${UNITS.join(", ")} (rate: bit/s, packets/s or flows/s beside the totals)` }).optional(),
   },
-  { error: "the request must be a JSON object with from, to and optional where, metric, groupBy, prefixLength, top, rank, unit" },
+  { error: "the request must be a JSON object with from, to and optional where, metric, groupBy, prefixLength, top, rank, allowOverlap, unit" },
 );
 
 const REQUEST_FIELDS = Object.keys(requestObject.shape);
@@ -232,7 +237,7 @@ export const estimateRequestSchema = requestObject
     } else if (q.groupBy !== undefined) {
       groupBy = { by: q.groupBy };
     }
-    return { from: q.from, to: q.to, where, metric: q.metric ?? null, groupBy, top: q.top ?? DEFAULT_TOP, rank: q.rank ?? "estimate", unit: q.unit ?? "total" };
+    return { from: q.from, to: q.to, where, metric: q.metric ?? null, groupBy, top: q.top ?? DEFAULT_TOP, rank: q.rank ?? "estimate", allowOverlap: q.allowOverlap ?? false, unit: q.unit ?? "total" };
   });
 
 // ---- issues --------------------------------------------------------------------------------
@@ -298,7 +303,7 @@ export function parseEstimateRequest(body: unknown): ParsedQuery {
 
 // ---- the query-string form ------------------------------------------------------------------
 
-const QUERY_SCALARS = ["from", "to", "metric", "groupBy", "prefixLength", "top", "rank", "unit"] as const;
+const QUERY_SCALARS = ["from", "to", "metric", "groupBy", "prefixLength", "top", "rank", "allowOverlap", "unit"] as const;
 /** Filters whose items a query string hands on as numbers (protocols take numbers only). */
 const NUMERIC_LISTS = new Set<string>(FILTER_FIELDS.filter((f) => VALUE_KINDS[f.value].numbers).map((f) => f.name));
 
@@ -338,7 +343,13 @@ export function parseEstimateSearchParams(params: URLSearchParams): ParsedQuery 
       }
       const text = name === "prefixLength" ? values.join(",") : values[0];
       body[name] =
-        name === "top" || name === "from" || name === "to" ? digitsToNumber(text) : name === "prefixLength" ? prefixLengthFromText(text) : text;
+        name === "top" || name === "from" || name === "to"
+          ? digitsToNumber(text)
+          : name === "prefixLength"
+            ? prefixLengthFromText(text)
+            : name === "allowOverlap" && (text === "true" || text === "false")
+              ? text === "true"
+              : text;
     } else if (WHERE_FIELDS.includes(name)) {
       const items = values.flatMap((v) => v.split(",")).map((v) => v.trim());
       const empty = items.indexOf("");

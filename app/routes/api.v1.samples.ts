@@ -3,7 +3,7 @@ import { ApiError, authenticateKey, touchKey } from "~/auth/api-keys.server";
 import { parseEstimateSearchParams } from "~/query/request";
 import { parseSampleFile, SampleFileError, toSampleFile } from "~/samples/document";
 import { exportSamples } from "~/samples/export.server";
-import { decodeUtf8, discardBody, gunzipLimited, importSampleSet, invalidSampleFile, parseImportCollector, readLimitedBody } from "~/samples/import.server";
+import { decodeUtf8, discardBody, fileDigest, gunzipLimited, importSampleSet, invalidSampleFile, parseImportCollector, readLimitedBody } from "~/samples/import.server";
 import { MergedCollectorError } from "~/tenants.server";
 import type { Route } from "./+types/api.v1.samples";
 
@@ -41,7 +41,8 @@ export async function loader({ request, context }: Route.LoaderArgs) {
  * POST /api/v1/samples?collector=NAME — imports a sample file (the body, application/json,
  * gzip allowed) into the collector NAME: each of the file's windows is merged into that
  * collector's reservoir of the same window, all in one transaction (docs/sample-file.md,
- * "Importing"). Needs a key with the ingest scope.
+ * "Importing"). Needs a key with the ingest scope, and NAME must be the key's own collector
+ * (the default when absent): a key writes only to its own collector.
  */
 export async function action({ request, context }: Route.ActionArgs) {
   if (request.method !== "POST") {
@@ -51,14 +52,20 @@ export async function action({ request, context }: Route.ActionArgs) {
   try {
     const principal = await authenticateKey(context.db, request, "ingest");
     touchKey(context.db, principal.keyId).catch((error: unknown) => context.logger.warn({ err: error }, "could not record key use"));
-    const collector = parseImportParams(new URL(request.url).searchParams);
-    const set = parseSampleFile(await readSampleFile(request, context));
+    const collector = parseImportParams(new URL(request.url).searchParams) ?? principal.collector.name;
+    if (collector !== principal.collector.name) {
+      const message = `names ${collector}, but this key belongs to the collector ${principal.collector.name}; a key imports only into its own collector (make a key for ${collector} on the Keys page, or upload the file on the console's Merge page)`;
+      throw new ApiError(403, "wrong_collector", `Cannot import: collector ${message}.`, { details: [{ path: "collector", message }] });
+    }
+    const bytes = await readSampleFile(request, context);
+    const set = parseSampleFile(decodeUtf8(bytes));
     const summary = await importSampleSet(
       { db: context.db, manager: context.manager, node: context.env.NODE_ID },
       principal.tenant,
       collector,
       set,
       { id: null, label: `key ${principal.prefix}` },
+      fileDigest(bytes),
     );
     return Response.json(summary, { headers: NO_STORE });
   } catch (error) {
@@ -74,8 +81,8 @@ export async function action({ request, context }: Route.ActionArgs) {
 
 const IMPORT_PARAMETERS = ["collector"];
 
-/** The one parameter of an import, `collector`, validated as every collector name is. */
-function parseImportParams(params: URLSearchParams): string {
+/** The one parameter of an import, `collector`, validated as every collector name is; null when absent (the key's own collector). */
+function parseImportParams(params: URLSearchParams): string | null {
   const details = [...new Set(params.keys())]
     .filter((name) => !IMPORT_PARAMETERS.includes(name))
     .map((path) => ({ path, message: `is not a known parameter (known: ${IMPORT_PARAMETERS.join(", ")})` }));
@@ -84,11 +91,11 @@ function parseImportParams(params: URLSearchParams): string {
     const more = details.length > 1 ? ` (and ${details.length - 1} more)` : "";
     throw new ApiError(400, "invalid_query", `Invalid query: ${details[0].path}: ${details[0].message}${more}.`, { details });
   }
-  return parseImportCollector(params.get("collector"), "collector", "invalid_query");
+  return params.has("collector") ? parseImportCollector(params.get("collector"), "collector", "invalid_query") : null;
 }
 
-/** The body as text: JSON only, gzip allowed, never more than SAMPLES_MAX_BODY_BYTES in memory. */
-async function readSampleFile(request: Request, context: AppLoadContext): Promise<string> {
+/** The body's bytes (gunzipped): JSON only, gzip allowed, never more than SAMPLES_MAX_BODY_BYTES in memory. */
+async function readSampleFile(request: Request, context: AppLoadContext): Promise<Uint8Array> {
   const type = (request.headers.get("content-type") ?? "").split(";")[0].trim().toLowerCase();
   if (type !== "application/json") {
     throw new ApiError(415, "unsupported_media_type", `Content-Type must be application/json (a sample file)${type ? `, not ${type}` : ""}.`);
@@ -99,7 +106,7 @@ async function readSampleFile(request: Request, context: AppLoadContext): Promis
   }
   const maxBytes = context.env.SAMPLES_MAX_BODY_BYTES;
   const body = await readLimitedBody(request, maxBytes);
-  return decodeUtf8(encoding === "gzip" ? await gunzipLimited(body, maxBytes) : body);
+  return encoding === "gzip" ? await gunzipLimited(body, maxBytes) : body;
 }
 
 /**

@@ -53,6 +53,8 @@ export interface IntakeCollector {
   lastSeenAt: number | null;
   /** Never sent a batch, but holds samples imported from sample files: not expected to send. */
   importsOnly: boolean;
+  /** A copy (filled by sample-file imports): the collectors its files came from; null for a stream collector. */
+  copyOf: string[] | null;
   quiet: boolean;
   recordsLastMinute: number;
   batchesLastMinute: number;
@@ -108,7 +110,7 @@ async function intakeSnapshot(
   const [collectorRows, rateRows, reservoirRows, sourceRows, keyRows, claimRows] = await Promise.all([
     // Merged collectors receive no records; the Merge page lists them.
     run(
-      "SELECT c.id, c.name, c.last_seen_at, EXISTS (SELECT 1 FROM reservoirs r WHERE r.collector_id = c.id AND r.records > 0) " +
+      "SELECT c.id, c.name, c.last_seen_at, EXISTS (SELECT 1 FROM reservoirs r WHERE r.collector_id = c.id AND r.records > 0), c.copy_of " +
         "FROM collectors c WHERE c.tenant_id = ? AND c.kind = 'stream' ORDER BY c.name",
       [tenant.id],
     ),
@@ -174,6 +176,7 @@ async function intakeSnapshot(
       name: String(row[1]),
       lastSeenAt,
       importsOnly,
+      copyOf: row[4] === null ? null : (JSON.parse(String(row[4])) as string[]),
       quiet: (lastSeenAt === null && !importsOnly) || (lastSeenAt !== null && now - lastSeenAt > QUIET_AFTER_WINDOWS * windowMs),
       recordsLastMinute: rate.records,
       batchesLastMinute: rate.batches,

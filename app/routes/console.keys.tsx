@@ -111,8 +111,9 @@ export default function Keys({ loaderData, actionData }: Route.ComponentProps) {
         title="Keys"
         lead={
           <>
-            API keys let collectors and scripts use Weir's HTTP API for {tenant.name}. Each key belongs to one collector; Weir keeps only a SHA-256 hash of it,
-            so a secret is shown once, when it is made.
+            API keys let collectors and scripts use Weir's HTTP API for {tenant.name}. Each key belongs to one collector and writes only to it: flow records
+            and sample-file imports with an ingest key go to that collector, never to another. Weir keeps only a SHA-256 hash of a key, so a secret is shown
+            once, when it is made.
           </>
         }
       />

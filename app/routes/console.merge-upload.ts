@@ -2,7 +2,7 @@ import { z } from "zod";
 import { ApiError } from "~/auth/api-keys.server";
 import { requireMember } from "~/auth/guards.server";
 import { parseSampleFile, SampleFileError } from "~/samples/document";
-import { decodeUtf8, discardBody, importSampleSet, invalidSampleFile, parseImportCollector, readLimitedBody, sampleFileTooLarge } from "~/samples/import.server";
+import { decodeUtf8, discardBody, fileDigest, importSampleSet, invalidSampleFile, parseImportCollector, readLimitedBody, sampleFileTooLarge } from "~/samples/import.server";
 import { ingestIpfixUpload, isIpfixUpload } from "~/ingest/ipfix-upload.server";
 import { MergedCollectorError } from "~/tenants.server";
 import type { Route } from "./+types/console.merge-upload";
@@ -58,6 +58,7 @@ export async function action({ request, context, params }: Route.ActionArgs) {
       collector,
       set,
       { id: user.id, label: user.login ?? user.email },
+      fileDigest(bytes),
     );
     return Response.json(summary, { headers: NO_STORE });
   } catch (error) {

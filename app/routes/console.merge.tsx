@@ -6,6 +6,7 @@ import { MergeSummary } from "~/components/merge/MergeSummary";
 import { SampleUpload } from "~/components/merge/SampleUpload";
 import { Button, Cautions, EmptyState, ErrorState, Field, inputClass, PageHeader, Panel } from "~/components/ui";
 import { mergeAnswer, type MergeAnswer } from "~/merges/answer";
+import { copiesAndMerges } from "~/query/collector-kinds.server";
 import { createMerge, deleteMerge, listMerges, refuseTakenName, streamCollectorNames, type MergeActor } from "~/merges/merges.server";
 import { planMerge } from "~/merges/plan.server";
 import { parseMergeRequest, type MergeIssue } from "~/merges/request.server";
@@ -23,12 +24,15 @@ const HOUR_MS = 3_600_000;
 /** Merge (engineers and admins): stream collectors to choose from, existing merges, upload limits. */
 export async function loader({ request, context, params }: Route.LoaderArgs) {
   const { tenant } = await requireMember(request, context, params.tenant, "engineer");
-  const [streams, merges] = await Promise.all([streamCollectorNames(context.db, tenant.id), listMerges(context.db, tenant.id)]);
+  const [streams, merges, special] = await Promise.all([streamCollectorNames(context.db, tenant.id), listMerges(context.db, tenant.id), copiesAndMerges(context.db, tenant.id)]);
+  // Copies (collectors filled by sample-file imports) with the collectors they came from.
+  const copies: Record<string, string[]> = Object.fromEntries(special.filter((c) => c.kind === "copy").map((c) => [c.name, c.of]));
   // The last 24 hours up to the next whole hour, computed here so server and browser show the same defaults.
   const to = Math.ceil(Date.now() / HOUR_MS) * HOUR_MS;
   return {
     tenant: { slug: tenant.slug, name: tenant.name, sampleSize: tenant.sampleSize, coordinated: tenant.coordinated },
     streams,
+    copies,
     merges,
     defaults: { from: toInput(to - 24 * HOUR_MS), to: toInput(to) },
     maxBytes: context.env.SAMPLES_MAX_BODY_BYTES,
@@ -123,7 +127,7 @@ function toInput(ms: number): string {
 }
 
 export default function Merge({ loaderData, actionData }: Route.ComponentProps) {
-  const { tenant, streams, merges, defaults, maxBytes } = loaderData;
+  const { tenant, streams, copies, merges, defaults, maxBytes } = loaderData;
   const outcome = actionData?.intent === "preview" || actionData?.intent === "create" ? actionData : undefined;
   const created = outcome?.ok && outcome.intent === "create" ? outcome.answer : undefined;
   return (
@@ -161,6 +165,7 @@ export default function Merge({ loaderData, actionData }: Route.ComponentProps) 
               key={created ? `${created.name}@${created.createdAt}` : "form"}
               tenantSlug={tenant.slug}
               streams={streams}
+              copies={copies}
               sampleSize={tenant.sampleSize}
               defaults={defaults}
               failed={outcome && !outcome.ok ? outcome : undefined}
@@ -209,6 +214,7 @@ function Explanation({ coordinated }: { coordinated: boolean }) {
 function MergeForm({
   tenantSlug,
   streams,
+  copies,
   sampleSize,
   defaults,
   failed,
@@ -216,6 +222,7 @@ function MergeForm({
 }: {
   tenantSlug: string;
   streams: string[];
+  copies: Record<string, string[]>;
   sampleSize: number;
   defaults: { from: string; to: string };
   failed?: { message: string; fieldErrors: FieldErrors };
@@ -234,13 +241,16 @@ function MergeForm({
             <label key={name} className="inline-flex items-center gap-2 text-sm text-river-100">
               <input type="checkbox" name="collectors" value={name} defaultChecked={chosen.includes(name)} className="accent-sand-300" />
               <span className="font-mono">{name}</span>
+              {copies[name] ? <span className="text-xs text-river-300">copy of {copies[name].join(", ")}</span> : null}
             </label>
           ))}
         </div>
         {errors.collectors ? (
           <p role="alert" className="text-sm text-red-300">{`Collectors: ${errors.collectors}.`}</p>
         ) : (
-          <p className="text-xs text-river-300">Stream collectors only (up to 50); merges are not merged again.</p>
+          <p className="text-xs text-river-300">
+            Stream collectors only (up to 50); merges are not merged again, and a copy (imported sample files) not with the collector it came from.
+          </p>
         )}
       </fieldset>
       <div className="grid gap-4 md:grid-cols-2 lg:grid-cols-4">

@@ -55,12 +55,12 @@ export async function exportSamples(db: Db, tenant: ExportTenant, range: ExportR
 
 const compare = (a: string, b: string) => (a < b ? -1 : a > b ? 1 : 0);
 
-/** The named collectors' ids (unknown names match nothing), or every stream collector's: merged collectors hold samples of the others' records, so they are exported only when named. */
+/** The named collectors' ids (unknown names match nothing), or every stream collector's: merged collectors and copies (imported sample files) hold samples of the others' records, so they are exported only when named. */
 async function collectorIdsOf(db: Db, tenantId: number, names: readonly string[]): Promise<number[]> {
   const found =
     names.length > 0
       ? await db.$client.execute({ sql: `SELECT id FROM collectors WHERE tenant_id = ? AND name IN (${names.map(() => "?").join(", ")})`, args: [tenantId, ...names] })
-      : await db.$client.execute({ sql: "SELECT id FROM collectors WHERE tenant_id = ? AND kind = 'stream'", args: [tenantId] });
+      : await db.$client.execute({ sql: "SELECT id FROM collectors WHERE tenant_id = ? AND kind = 'stream' AND copy_of IS NULL", args: [tenantId] });
   return found.rows.map((row) => Number(row[0]));
 }
 

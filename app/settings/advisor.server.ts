@@ -21,14 +21,14 @@ export interface SampleSizeAdvice {
 
 /**
  * The advisor's figures from the tenant's fine windows of the 24 hours before `now`, stream
- * collectors only (a merged collector repeats its inputs' records).
+ * collectors only (a merged collector repeats its inputs' records, a copy maybe its origins').
  */
 export async function sampleSizeAdvice(
   db: Db,
   tenant: { id: number; sampleSize: number; windowSeconds: number; weightAttribute: "bytes" | "packets" },
   now: number,
 ): Promise<SampleSizeAdvice> {
-  const streams = await db.$client.execute({ sql: "SELECT id FROM collectors WHERE tenant_id = ? AND kind = 'stream'", args: [tenant.id] });
+  const streams = await db.$client.execute({ sql: "SELECT id FROM collectors WHERE tenant_id = ? AND kind = 'stream' AND copy_of IS NULL", args: [tenant.id] });
   const stored = await readStoredWindows(db.$client, tenant.id, {
     // At most the last MAX_WINDOWS windows' worth of time, so a page load never decodes a whole day.
     from: now - Math.min(DAY_MS, MAX_WINDOWS * tenant.windowSeconds * 1000),

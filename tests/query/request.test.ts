@@ -66,6 +66,7 @@ describe("a valid request", () => {
       groupBy: { by: "src", prefixLength: { ipv4: 16, ipv6: 48 } },
       top: 25,
       rank: "split",
+      allowOverlap: false,
       unit: "total",
     });
   });
@@ -79,6 +80,7 @@ describe("a valid request", () => {
       groupBy: null,
       top: 10,
       rank: "estimate",
+      allowOverlap: false,
       unit: "total",
     });
     // /24 per IPv4 network and /64 per IPv6 subnet (RFC 4291 §2.5.4: 64-bit interface ids).

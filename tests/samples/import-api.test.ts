@@ -1,3 +1,4 @@
+import { createHash } from "node:crypto";
 import { gzipSync } from "node:zlib";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import type { FlowRecord } from "~/flow/record";
@@ -82,6 +83,8 @@ describe("POST /api/v1/samples (import)", () => {
   let t: TestServer;
   let tenantId: number;
   const keys = { ingest: "", query: "", both: "" };
+  /** An ingest key per collector the tests import into: a key imports only into its own collector. */
+  const importKeys: Record<string, string> = {};
   /** A file exported from another tenant that received invented flows through the API. */
   let exportedText = "";
   let exportedSet: SampleSet;
@@ -91,17 +94,21 @@ describe("POST /api/v1/samples (import)", () => {
   /** Everything an import could write, as comparable text. */
   async function snapshot(): Promise<string> {
     const parts = await Promise.all([
-      rows("SELECT id, tenant_id, name, kind FROM collectors ORDER BY id"),
+      rows("SELECT id, tenant_id, name, kind, copy_of FROM collectors ORDER BY id"),
       rows("SELECT id, tenant_id, collector_id, window_start, window_seconds, node, k, tau, records, bytes, packets, next_seq FROM reservoirs ORDER BY id"),
       rows("SELECT reservoir_id, seq, hex(data) FROM kept_records ORDER BY reservoir_id, seq"),
       rows("SELECT id, action, detail FROM audit_log ORDER BY id"),
+      rows("SELECT id, collector_id, digest, windows, kept, records FROM sample_imports ORDER BY id"),
+      rows("SELECT id, import_id, source_collector, source_node, window_start, window_seconds FROM imported_windows ORDER BY id"),
     ]);
     return JSON.stringify(parts.map((p) => p.map((r) => Array.from(r))));
   }
 
   function post(body: BodyInit, options: { key?: string | null; search?: string; headers?: Record<string, string>; method?: string } = {}) {
-    const key = options.key === undefined ? keys.ingest : options.key;
-    return fetch(`${t.url}/api/v1/samples${options.search ?? "?collector=site-b"}`, {
+    const search = options.search ?? "?collector=site-b";
+    const named = new URLSearchParams(search).get("collector") ?? "";
+    const key = options.key === undefined ? (importKeys[named] ?? keys.ingest) : options.key;
+    return fetch(`${t.url}/api/v1/samples${search}`, {
       method: options.method ?? "POST",
       headers: { ...(key === null ? {} : { authorization: `Bearer ${key}` }), "content-type": "application/json", ...options.headers },
       body,
@@ -122,6 +129,8 @@ describe("POST /api/v1/samples (import)", () => {
     keys.ingest = made.key;
     keys.query = (await keyFor(t.server, tenantId, "edge-1", "query")).key;
     keys.both = (await keyFor(t.server, tenantId, "edge-1", "both")).key;
+    // Made before any import: a collector with no records yet becomes a copy when a file is imported into it.
+    for (const name of ["site-b", "lab", "two-nodes", "zipped", "weights"]) importKeys[name] = (await keyFor(t.server, tenantId, name, "ingest")).key;
 
     // The "offline site": another tenant receives invented flows over HTTP and exports them.
     const offline = await tenantWithKey(t.server, "offline-site", { collector: "site-b", scope: "both", sampleSize: 16 });
@@ -220,7 +229,7 @@ describe("POST /api/v1/samples (import)", () => {
       });
       const streamed = await fetch(`${t.url}/api/v1/samples?collector=site-b`, {
         method: "POST",
-        headers: { authorization: `Bearer ${keys.ingest}`, "content-type": "application/json" },
+        headers: { authorization: `Bearer ${importKeys["site-b"]}`, "content-type": "application/json" },
         body: stream,
         duplex: "half",
       } as RequestInit);
@@ -250,7 +259,6 @@ describe("POST /api/v1/samples (import)", () => {
     it("a missing, invalid, repeated or unknown parameter → 400 invalid_query", async () => {
       const before = await snapshot();
       const cases: [string, string][] = [
-        ["", "collector"],
         ["?collector=", "collector"],
         ["?collector=-starts-with-dash", "collector"],
         ["?collector=a&collector=b", "collector"],
@@ -266,12 +274,12 @@ describe("POST /api/v1/samples (import)", () => {
       expect(await snapshot()).toBe(before);
     });
 
-    it("a merged collector's name → 409 with its message", async () => {
+    it("a merged collector's name → 403: no key belongs to a merge, and a key imports only into its own collector", async () => {
       await rows("INSERT INTO collectors (tenant_id, name, kind, created_at) VALUES (?, 'all-sites', 'merge', ?)", [tenantId, T0]);
       const before = await snapshot();
       const res = await post(exportedText, { search: "?collector=all-sites" });
-      expect(res.status).toBe(409);
-      expect((await res.json()).error).toMatchObject({ code: "merged_collector", message: expect.stringContaining("all-sites is a merged collector") });
+      expect(res.status).toBe(403);
+      expect((await res.json()).error).toMatchObject({ code: "wrong_collector", message: expect.stringContaining("belongs to the collector edge-1") });
       expect(await snapshot()).toBe(before);
     });
 
@@ -301,12 +309,16 @@ describe("POST /api/v1/samples (import)", () => {
     const recordsInFile = exportedSet.windows.reduce((n, w) => n + w.exact.records, 0n);
     expect(summary).toEqual({
       collector: "site-b",
+      // The offline file's windows name site-b: the collector is a copy of it (collector-rule.ts).
+      copyOf: ["site-b"],
       windows: 2,
       mergedWithExisting: 0,
       kept: keptInFile,
       records: Number(recordsInFile),
       from: new Date(T0).toISOString(),
       to: new Date(T0 + 2 * WINDOW_MS).toISOString(),
+      // SHA-256 of the bytes sent, by node:crypto (FIPS 180-4).
+      digest: createHash("sha256").update(exportedText).digest("hex"),
     });
 
     // The estimate over the imported collector: exact counters are the file's sums; the bytes
@@ -373,37 +385,20 @@ describe("POST /api/v1/samples (import)", () => {
     expect(stored.exact).toEqual(union.exact);
   });
 
-  it("merges a file into a collector fed by ingest: the stored reservoir equals mergeStates of the two", async () => {
+  it("refuses a file into a collector fed by ingest (409 live_collector): a copy merged into a live stream could not be told apart", async () => {
+    // The merge of DLT 2007 assumes disjoint streams; a live collector counts in every question,
+    // so a file merged into it would count wherever its origin counts too. Nothing is stored.
     const windowStart = T0 + WINDOW_MS;
     const live = offers(31, windowStart, 50, 2000).map(([r]) => ({ src: "192.0.2.7", dst: "203.0.113.9", sport: r.sport, dport: 443, proto: 6, bytes: Number(r.bytes), packets: Number(r.packets), start: r.start }));
     expect((await postFlows(t.url, keys.both, JSON.stringify(live))).status).toBe(200);
-    const [before] = (await exportOf("edge-1", windowStart, windowStart + WINDOW_MS)).windows;
-    expect(before.seen).toBe(50);
-
+    const before = await snapshot();
     const file = prioritySample("offline", windowStart, 16, offers(32, windowStart, 25, 3000));
     const res = await post(JSON.stringify(fileOf([file])), { search: "?collector=edge-1" });
-    expect(res.status).toBe(200);
-    expect(await res.json()).toMatchObject({ windows: 1, mergedWithExisting: 1, records: 25 });
-
-    const [after] = (await exportOf("edge-1", windowStart, windowStart + WINDOW_MS)).windows;
-    // Merge rule of DLT 2007 (app/sampling/merge.ts): k_m highest priorities of the union, τ from the rest and every τ_j.
-    const merged = mergeStates(
-      [before, file].map((w) => ({ k: w.k, tau: w.tau, seen: w.seen, kept: w.kept.map((e) => ({ item: e.record, weight: e.weight, priority: e.priority })) })),
-    );
-    expect(after).toMatchObject({ k: merged.k, tau: merged.tau, seen: merged.seen });
-    expect(after.kept).toEqual(merged.kept.map((e) => ({ priority: e.priority, weight: e.weight, record: e.item })));
-    expect(after.exact).toEqual({
-      records: before.exact.records + file.exact.records,
-      bytes: before.exact.bytes + file.exact.bytes,
-      packets: before.exact.packets + file.exact.packets,
-    });
-
-    // Ingest goes on into the merged reservoir: the manager reloaded it from SQLite.
-    const more = [{ src: "192.0.2.8", dst: "203.0.113.9", sport: 5000, dport: 443, proto: 6, bytes: 700, packets: 1, start: windowStart + 1000 }];
-    expect((await postFlows(t.url, keys.both, JSON.stringify(more))).status).toBe(200);
-    const [later] = (await exportOf("edge-1", windowStart, windowStart + WINDOW_MS)).windows;
-    expect(later.seen).toBe(after.seen + 1);
-    expect(later.exact.bytes).toBe(after.exact.bytes + 700n);
+    const answer = await res.json();
+    expect(res.status, JSON.stringify(answer)).toBe(409);
+    expect(answer.error).toMatchObject({ code: "live_collector", message: expect.stringContaining("edge-1 holds records of its own") });
+    expect(answer.error.details[0].path).toBe("collector");
+    expect(await snapshot()).toBe(before);
   });
 
   it("groups the file's windows of one window (several collectors or nodes) into one reservoir", async () => {

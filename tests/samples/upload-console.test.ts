@@ -1,3 +1,4 @@
+import { createHash } from "node:crypto";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { ensureUserByEmail, setMembership } from "~/auth/users.server";
 import type { FlowRecord } from "~/flow/record";
@@ -27,7 +28,7 @@ const NODE = "node-up";
  * kept, τ = the (k+1)-th highest (0 when at most k were offered). Invented flows in RFC 5737
  * space with a private AS number (RFC 5398); weight = bytes, heavy-tailed (Pareto, shape 1.2).
  */
-function sampledWindow(seed: number, windowStart: number, k: number, count: number, firstPort: number): SampleWindow {
+function sampledWindow(seed: number, windowStart: number, k: number, count: number, firstPort: number, collector = "site-c"): SampleWindow {
   const u = seededUniform(seed);
   const records: FlowRecord[] = [];
   const all = Array.from({ length: count }, (_, i) => {
@@ -53,7 +54,7 @@ function sampledWindow(seed: number, windowStart: number, k: number, count: numb
   });
   all.sort((a, b) => b.priority - a.priority);
   return {
-    collector: "site-c",
+    collector,
     windowStart,
     windowSeconds: WINDOW_MS / 1000,
     k,
@@ -89,10 +90,12 @@ describe("console sample upload (/t/:tenant/merge/upload)", () => {
   const rows = async (sql: string, args: (string | number)[] = []) => (await t.server.db.$client.execute({ sql, args })).rows;
   async function snapshot(): Promise<string> {
     const parts = await Promise.all([
-      rows("SELECT id, tenant_id, name, kind FROM collectors ORDER BY id"),
+      rows("SELECT id, tenant_id, name, kind, copy_of FROM collectors ORDER BY id"),
       rows("SELECT id, collector_id, window_start, window_seconds, node, k, tau, records, bytes, packets, next_seq FROM reservoirs ORDER BY id"),
       rows("SELECT reservoir_id, seq, hex(data) FROM kept_records ORDER BY reservoir_id, seq"),
       rows("SELECT id, action, detail FROM audit_log WHERE action = 'samples.import' ORDER BY id"),
+      rows("SELECT id, collector_id, digest, windows, kept, records FROM sample_imports ORDER BY id"),
+      rows("SELECT id, import_id, source_collector, source_node, window_start, window_seconds FROM imported_windows ORDER BY id"),
     ]);
     return JSON.stringify(parts.map((p) => p.map((r) => Array.from(r))));
   }
@@ -121,16 +124,22 @@ describe("console sample upload (/t/:tenant/merge/upload)", () => {
     expect(res.status, JSON.stringify(summary)).toBe(200);
     expect(summary).toEqual({
       collector: "site-c-offline",
+      // The file's windows name site-c: the new collector is a copy of it.
+      copyOf: ["site-c"],
       windows: 2,
       mergedWithExisting: 0,
       kept: 16 + 7,
       records: 47,
       from: new Date(T0).toISOString(),
       to: new Date(T0 + 2 * WINDOW_MS).toISOString(),
+      // SHA-256 of the uploaded bytes, by node:crypto (FIPS 180-4).
+      digest: createHash("sha256").update(fileText(windows)).digest("hex"),
     });
 
-    const [collector] = await rows("SELECT id, kind FROM collectors WHERE tenant_id = ? AND name = 'site-c-offline'", [tenantId]);
+    // Kind "copy" to readers: the stored kind stays stream, copy_of names the origin.
+    const [collector] = await rows("SELECT id, kind, copy_of FROM collectors WHERE tenant_id = ? AND name = 'site-c-offline'", [tenantId]);
     expect(collector.kind).toBe("stream");
+    expect(JSON.parse(String(collector.copy_of))).toEqual(["site-c"]);
     const stored = await readStoredWindows(t.server.db.$client, tenantId, { from: T0, to: T0 + 2 * WINDOW_MS, collectorIds: [Number(collector.id)] });
     expect(stored).toHaveLength(2);
     stored.forEach((s, i) => {
@@ -148,8 +157,9 @@ describe("console sample upload (/t/:tenant/merge/upload)", () => {
   });
 
   it("an admin uploads into a collector that holds the window: the stored reservoir is the merge of the two", async () => {
-    const first = sampledWindow(3, T0, 12, 30, 30_000);
-    const second = sampledWindow(4, T0, 10, 25, 31_000); // other ports: records disjoint from the first file's
+    // Two sites' files of the same window (other ports: records disjoint from the first file's).
+    const first = sampledWindow(3, T0, 12, 30, 30_000, "site-d");
+    const second = sampledWindow(4, T0, 10, 25, 31_000, "site-e");
     expect((await upload(ada, form({ collector: "pop-merge", file: jsonFile(fileText([first])) }))).status).toBe(200);
     const res = await upload(ada, form({ collector: "pop-merge", file: jsonFile(fileText([second])) }));
     expect(await res.json()).toMatchObject({ windows: 1, mergedWithExisting: 1, kept: 10, records: 25 });
@@ -165,6 +175,22 @@ describe("console sample upload (/t/:tenant/merge/upload)", () => {
     expect(stored.kept).toEqual(merged.kept);
     const priorities = [...first.kept, ...second.kept].map((e) => e.priority).sort((a, b) => b - a);
     expect(stored.tau).toBe(Math.max(first.tau, second.tau, priorities[10]));
+  });
+
+  it("refuses the same file again (409 duplicate_import, naming the earlier upload and who made it) and changes nothing", async () => {
+    // A repeated file would count its records twice: the merge of DLT 2007 assumes disjoint streams.
+    const text = fileText([sampledWindow(7, T0, 8, 12, 50_000, "site-f")]);
+    expect((await upload(eli, form({ collector: "site-f-copy", file: jsonFile(text) }))).status).toBe(200);
+    const before = await snapshot();
+    for (const [who, into] of [[ada, "site-f-copy"], [eli, "site-f-elsewhere"]] as const) {
+      const res = await upload(who, form({ collector: into, file: jsonFile(text) }));
+      const answer = await res.json();
+      expect(res.status, JSON.stringify(answer)).toBe(409);
+      expect(answer.error.code).toBe("duplicate_import");
+      expect(answer.error.message).toMatch(/imported already: into site-f-copy at \d{4}-\d{2}-\d{2}T.*Z by eli-engineer/);
+      expect(answer.error.earlier).toMatchObject({ collector: "site-f-copy", by: "eli-engineer" });
+    }
+    expect(await snapshot()).toBe(before);
   });
 
   it("answers 403 to a viewer, 404 to a member of another tenant, a sign-in redirect to nobody; nothing stored", async () => {
@@ -242,7 +268,7 @@ describe("console sample upload (/t/:tenant/merge/upload)", () => {
     // The limit as the server is configured (SAMPLES_MAX_BODY_BYTES), in binary units.
     expect(html).toContain(formatBytes(MAX_BYTES));
     expect(formatBytes(64 * 1024 * 1024)).toBe("64 MiB");
-    expect(html).toMatch(/must not repeat records the collector already holds/);
+    expect(html).toMatch(/its records would be counted twice/);
     expect(html).toMatch(/95% interval/);
     expect(html).toMatch(/personal data/);
   });

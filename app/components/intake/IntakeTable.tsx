@@ -109,6 +109,11 @@ function CollectorRow({ c, snapshot }: { c: IntakeCollector; snapshot: IntakeSna
     <tr className="border-b border-river-800/70 align-top last:border-0">
       <th scope="row" className="py-2 pr-3 text-left font-normal">
         <span className={`font-mono ${c.quiet ? "text-river-300" : "text-river-50"}`}>{c.name}</span>
+        {c.copyOf ? (
+          <span className="ml-2 text-xs text-river-300" title="Filled by imported sample files: counted in Slice only when picked">
+            copy of {c.copyOf.join(", ")}
+          </span>
+        ) : null}
         {c.quiet ? (
           <span
             className="ml-2 inline-flex rounded border border-sand-400/70 px-1.5 py-px text-[11px] font-semibold tracking-wide text-sand-200 uppercase"

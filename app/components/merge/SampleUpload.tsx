@@ -7,6 +7,8 @@ import { Button, Cautions, Field, Panel, inputClass } from "../ui";
 /** What the upload route answers on success (see app/samples/import.server.ts). */
 export interface UploadSummary {
   collector: string;
+  /** The collectors the imported files came from: the target is a copy of them. */
+  copyOf: string[];
   windows: number;
   mergedWithExisting: number;
   kept: number;
@@ -113,9 +115,9 @@ export function SampleUpload({ tenantSlug, collectors, maxBytes }: { tenantSlug:
   return (
     <Panel title="Upload a sample file or an IPFIX file">
       <p className="mb-4 max-w-3xl text-sm text-river-200">
-        A <strong>sample file</strong>'s windows become reservoirs of the collector you name, whatever collector the file came from. Where that
-        collector already holds a window, the two reservoirs are merged into one valid sample, so the file must not repeat records the collector
-        already holds (they would be counted twice). An <strong>IPFIX file</strong> (RFC 5655, as probes and collectors write them) is sampled
+        A <strong>sample file</strong>'s windows become reservoirs of the collector you name, which becomes a <strong>copy</strong> of the collectors the
+        file came from: counted only when picked. Name a new collector or an earlier copy, not one that receives records live. The same file, or a window
+        already imported, is refused, since its records would be counted twice. An <strong>IPFIX file</strong> (RFC 5655, as probes and collectors write them) is sampled
         into the collector like records sent to it; records of the same flows already sent would be counted twice too. A file is applied whole or
         not at all.
       </p>
@@ -220,6 +222,11 @@ function UploadResult({ summary }: { summary: UploadSummary }) {
         </div>
       </dl>
       <p className="mt-2 text-xs text-emerald-300">Time range: {range}</p>
+      {summary.copyOf.length > 0 ? (
+        <p className="mt-1 text-xs text-emerald-300">
+          “{summary.collector}” is a copy of {summary.copyOf.join(", ")}: Slice counts it only when it is picked, never together with {summary.copyOf.length === 1 ? "that collector" : "those collectors"}.
+        </p>
+      ) : null}
     </div>
   );
 }
@@ -265,11 +272,18 @@ function IpfixResult({ summary }: { summary: IpfixUploadSummary }) {
   );
 }
 
+/** Headings for the refusals that protect against counting records twice (import.server.ts). */
+const REFUSAL_TITLES: Record<string, string> = {
+  duplicate_import: "Upload refused: this file was imported already",
+  overlapping_import: "Upload refused: a window of this file was imported already",
+  live_collector: "Upload refused: the collector receives live records",
+};
+
 function UploadFailure({ error }: { error: UploadError }) {
   const details = error.details ?? [];
   return (
     <div role="alert" className="mt-4 rounded-md border border-red-400/50 bg-red-950/30 px-4 py-3 text-sm text-red-100">
-      <p className="font-medium">Upload refused</p>
+      <p className="font-medium">{REFUSAL_TITLES[error.code] ?? "Upload refused"}</p>
       <p className="mt-1 text-red-200">{error.message}</p>
       {details.length > 0 ? (
         <ul className="mt-2 space-y-0.5 font-mono text-xs text-red-200">

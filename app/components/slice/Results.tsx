@@ -83,6 +83,11 @@ export function Headline({
         {answer.collectors.length === 0 ? "no collectors" : `collectors ${answer.collectors.join(", ")}`}
       </p>
       <ResolutionNote resolution={answer.resolution} windowSeconds={windowSeconds} />
+      {answer.collectorRule && answer.collectorRule.rule !== "named" ? (
+        <p className={`mt-1 text-xs ${answer.collectorRule.rule === "overlap-allowed" ? "text-amber-200" : "text-river-300"}`} data-collector-rule>
+          {answer.collectorRule.text}
+        </p>
+      ) : null}
       <p className="mt-3 flex flex-wrap items-baseline gap-x-3 gap-y-1">
         {answer.method === "no-match" ? (
           <span className="text-4xl font-semibold text-river-50">

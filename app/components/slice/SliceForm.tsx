@@ -4,17 +4,18 @@ import { DEFAULT_TOP, GROUP_BY, MAX_TOP, METRICS, type GroupByKind, type Metric 
 import { checkPortChip, checkPrefixChip, checkProtocolChip, COMMON_PROTOCOLS, protocolLabel } from "~/slice/chips";
 import { RANGE_PRESETS, resolveRange, type RangePreset, type SliceRange, type SliceState } from "~/slice/query-state";
 import { formatUtcMinute, GROUP_LABELS, parseUtcMinute, UTC_MINUTE_PATTERN } from "~/slice/format";
+import { overlapsOf } from "~/query/collector-rule";
 import { ChipInput, PendingTextContext, useSentValue } from "./ChipInput";
 import { SplitRankField } from "./Selection";
 
 
 const METRIC_LABELS: Record<Metric, string> = { bytes: "Bytes", packets: "Packets", flows: "Flows (records)" };
 
-/** A collector to pick: a stream collector, or a merge with the collectors it merged. */
+/** A collector to pick: a stream collector, a merge with the collectors it merged, or a copy with the collectors its imported files came from. */
 export interface CollectorChoice {
   name: string;
-  kind: "stream" | "merge";
-  /** A merge's inputs; empty for a stream collector. */
+  kind: "stream" | "merge" | "copy";
+  /** A merge's inputs or a copy's origins; empty for a stream collector. */
   inputs: string[];
 }
 
@@ -235,16 +236,18 @@ function NumberField({ label, value, min, max, onCommit, hint, prefix }: { label
 }
 
 /**
- * Stream collectors and merges apart. A merge holds a sample of its inputs' records, so it
- * counts only when picked and never with one of its inputs (the estimate API refuses that
- * with 422); with nothing picked, every stream collector counts and merges are left out.
+ * Stream collectors, copies and merges apart. A merge holds a sample of its inputs' records
+ * and a copy one of its origins' (collector-rule.ts), so each counts only when picked and
+ * never with what it holds (the estimate API refuses that with 422); with nothing picked,
+ * every stream collector counts and copies and merges are left out.
  */
 function Collectors({ known, chosen, onToggle: toggle }: { known: CollectorChoice[]; chosen: string[]; onToggle(name: string): void }) {
   const streams = known.filter((c) => c.kind === "stream");
   const merges = known.filter((c) => c.kind === "merge");
+  const copies = known.filter((c) => c.kind === "copy");
   // A shared link may name a collector this tenant does not have; keep it visible so it can be removed.
   const unknown = chosen.filter((name) => !known.some((c) => c.name === name));
-  const overlap = overlapOf(merges, chosen);
+  const overlap = overlapsOf(chosen, known.map((c) => ({ name: c.name, kind: c.kind, of: c.inputs })))[0]?.message ?? null;
   return (
     <fieldset className="flex flex-col gap-2 border-t border-river-800 pt-4">
       <legend className="pr-2 text-xs font-semibold tracking-wide text-sand-300 uppercase">Collectors</legend>
@@ -259,6 +262,22 @@ function Collectors({ known, chosen, onToggle: toggle }: { known: CollectorChoic
               ))}
               {unknown.map((name) => (
                 <CollectorBox key={name} name={name} on onToggle={() => toggle(name)} note={<span className="text-xs text-red-300">not a collector of this tenant</span>} />
+              ))}
+            </div>
+          ) : null}
+          {copies.length > 0 ? (
+            <div role="group" aria-labelledby="slice-copies-label" className="flex flex-col gap-1">
+              <p id="slice-copies-label" className="text-xs font-medium text-river-200">
+                Copies (imported sample files)
+              </p>
+              {copies.map((c) => (
+                <CollectorBox
+                  key={c.name}
+                  name={c.name}
+                  on={chosen.includes(c.name)}
+                  onToggle={() => toggle(c.name)}
+                  note={<span className="text-xs text-river-300">copy of {c.inputs.join(", ")}</span>}
+                />
               ))}
             </div>
           ) : null}
@@ -282,7 +301,7 @@ function Collectors({ known, chosen, onToggle: toggle }: { known: CollectorChoic
       )}
       {overlap ? (
         <p role="alert" className="text-xs text-red-300">
-          {overlap}
+          {`${overlap}: pick one of them.`}
         </p>
       ) : null}
       <p className="text-xs text-river-300">
@@ -290,6 +309,7 @@ function Collectors({ known, chosen, onToggle: toggle }: { known: CollectorChoic
         {merges.length > 0
           ? " A merge holds a sample of its inputs' records: it counts only when picked, and not together with its own inputs."
           : null}
+        {copies.length > 0 ? " A copy holds imported samples of the collectors it came from: it counts only when picked, and not together with them." : null}
       </p>
     </fieldset>
   );
@@ -303,20 +323,6 @@ function CollectorBox({ name, on, onToggle, note }: { name: string; on: boolean;
       {note}
     </label>
   );
-}
-
-/** Why the chosen collectors would count records twice, or null: a merge with one of its inputs, or two merges sharing one. */
-function overlapOf(merges: CollectorChoice[], chosen: string[]): string | null {
-  const claimedBy = new Map<string, string>();
-  for (const merge of merges.filter((m) => chosen.includes(m.name))) {
-    for (const input of merge.inputs) {
-      if (chosen.includes(input)) return `${merge.name} merges ${input}: pick one of them, or their records count twice.`;
-      const other = claimedBy.get(input);
-      if (other !== undefined) return `${other} and ${merge.name} both merge ${input}: pick one of them, or its records count twice.`;
-      claimedBy.set(input, merge.name);
-    }
-  }
-  return null;
 }
 
 const toInput = formatUtcMinute;
