@@ -2,7 +2,7 @@ import { and, count, desc, eq, gte, isNull, lt, or, sql, type SQL } from "drizzl
 import { z } from "zod";
 import type { Db } from "~/db/client.server";
 import { auditLog, memberships } from "~/db/schema.server";
-import { describeDetail, utcSecond } from "./ledger-format";
+import { describeDetail, ledgerTime, type DetailRow } from "./ledger-format";
 
 export const LEDGER_PAGE_SIZE = 50;
 const DAY_MS = 86_400_000;
@@ -39,12 +39,12 @@ export function parseLedgerFilter(params: URLSearchParams) {
 
 export interface LedgerRow {
   id: number;
-  /** UTC, ISO 8601 to the second. */
+  /** UTC to the second, as the console writes times ("2025-03-01 14:05:09 UTC"). */
   when: string;
   who: string;
   action: string;
   target: string | null;
-  details: string;
+  details: DetailRow[];
 }
 
 export interface LedgerPage {
@@ -90,7 +90,7 @@ export async function ledgerPage(db: Db, tenantId: number, filter: LedgerFilter)
   const actions = await db.selectDistinct({ action: auditLog.action }).from(auditLog).where(scope).orderBy(auditLog.action);
 
   return {
-    rows: rows.map((r) => ({ id: r.id, when: utcSecond(r.at), who: r.actor, action: r.action, target: r.target, details: describeDetail(r.detail) })),
+    rows: rows.map((r) => ({ id: r.id, when: ledgerTime(r.at), who: r.actor, action: r.action, target: r.target, details: describeDetail(r.detail) })),
     total,
     page: filter.page,
     pageSize: LEDGER_PAGE_SIZE,

@@ -3,7 +3,7 @@ import type { Role } from "~/db/schema.server";
 /** What each role may do, in the words the console and the invitation e-mail use. */
 export const ROLE_ABILITIES: Record<Role, string> = {
   viewer: "reads Intake and Slice (estimates and their intervals)",
-  engineer: "slices traffic, merges and uploads samples and sets alerts",
+  engineer: "slices traffic, merges collectors' samples, and uploads and exports sample files",
   admin: "does everything, including Keys, People, Ledger and Settings",
 };
 

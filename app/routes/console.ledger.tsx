@@ -1,6 +1,7 @@
 import { data, Form, Link, useLoaderData, useLocation, useNavigation } from "react-router";
 import { requireMember } from "~/auth/guards.server";
 import { Button, EmptyState, ErrorState, Field, inputClass, LoadingState, PageHeader, Panel } from "~/components/ui";
+import type { DetailRow } from "~/people/ledger-format";
 import { ledgerPage, parseLedgerFilter, type LedgerPage } from "~/people/ledger.server";
 import type { Route } from "./+types/console.ledger";
 
@@ -49,7 +50,7 @@ export default function Ledger() {
     <>
       <PageHeader
         title="Ledger"
-        lead={<>Who did what in {view.tenant.name}, and when: changes to members, invitations, keys and settings, exporter claims and releases, merges, sample-file and IPFIX-file uploads and roll-up runs, and the sign-ins of current members. Newest first; times in UTC.</>}
+        lead={<>Who did what in {view.tenant.name}, and when: changes to members, invitations, keys and settings, exporter claims and releases, merges, sample-file and IPFIX-file uploads and roll-up runs, and the sign-ins of current members. Newest first; times in UTC, 24-hour.</>}
       />
       <div className="grid gap-6">
         <Panel title="Filter">
@@ -67,11 +68,12 @@ export default function Ledger() {
             <Field label="Who" htmlFor="ledger-actor">
               <input id="ledger-actor" name="actor" type="search" defaultValue={view.filter.actor} placeholder="login or e-mail" maxLength={100} className={inputClass} />
             </Field>
-            <Field label="From (UTC)" htmlFor="ledger-from">
-              <input id="ledger-from" name="from" type="date" defaultValue={view.filter.from} className={inputClass} />
+            {/* Text, not the browser's date input: that one shows the date in its locale's order, unlike every other date of the console. */}
+            <Field label="From (UTC day)" htmlFor="ledger-from">
+              <input id="ledger-from" name="from" type="text" inputMode="numeric" pattern="\d{4}-\d{2}-\d{2}" placeholder="YYYY-MM-DD" autoComplete="off" defaultValue={view.filter.from} className={`${inputClass} font-mono placeholder:font-sans placeholder:italic`} />
             </Field>
-            <Field label="To (UTC, inclusive)" htmlFor="ledger-to">
-              <input id="ledger-to" name="to" type="date" defaultValue={view.filter.to} className={inputClass} />
+            <Field label="To (UTC day, inclusive)" htmlFor="ledger-to">
+              <input id="ledger-to" name="to" type="text" inputMode="numeric" pattern="\d{4}-\d{2}-\d{2}" placeholder="YYYY-MM-DD" autoComplete="off" defaultValue={view.filter.to} className={`${inputClass} font-mono placeholder:font-sans placeholder:italic`} />
             </Field>
             <div className="flex gap-2">
               <Button type="submit">Apply</Button>
@@ -125,7 +127,7 @@ function LedgerTable({ ledger, base, filter }: { ledger: LedgerPage; base: strin
           <caption className="sr-only">Ledger entries, newest first</caption>
           <thead className="border-b border-river-700 text-xs tracking-wide text-river-300 uppercase">
             <tr>
-              <th scope="col" className="py-2 pr-4 font-medium">When (UTC)</th>
+              <th scope="col" className="py-2 pr-4 font-medium">When</th>
               <th scope="col" className="py-2 pr-4 font-medium">Who</th>
               <th scope="col" className="py-2 pr-4 font-medium">Action</th>
               <th scope="col" className="py-2 pr-4 font-medium">Target</th>
@@ -136,12 +138,13 @@ function LedgerTable({ ledger, base, filter }: { ledger: LedgerPage; base: strin
             {ledger.rows.map((r) => (
               <tr key={r.id} className="border-b border-river-800 align-top" data-action={r.action}>
                 <td className="py-2.5 pr-4 font-mono text-xs whitespace-nowrap text-river-100">{r.when}</td>
-                <td className="py-2.5 pr-4 font-mono text-xs text-river-50">{r.who}</td>
-                <td className="py-2.5 pr-4">
+                <td className="py-2.5 pr-4 font-mono text-xs whitespace-nowrap text-river-50">{r.who}</td>
+                <td className="py-2.5 pr-4 whitespace-nowrap">
                   <span className="rounded-full border border-river-600 px-2 py-0.5 font-mono text-xs text-sand-200">{r.action}</span>
                 </td>
-                <td className="py-2.5 pr-4 font-mono text-xs break-all text-river-100">{r.target ?? <span className="font-sans text-river-300">—</span>}</td>
-                <td className="py-2.5 text-river-200">{r.details || <span className="text-river-300">—</span>}</td>
+                {/* break-words wraps a long token (an e-mail address) only where it would not fit, and never shrinks the column to split names mid-word as break-all does. */}
+                <td className="max-w-[16rem] py-2.5 pr-4 font-mono text-xs break-words text-river-100">{r.target ?? <span className="font-sans text-river-300">—</span>}</td>
+                <td className="py-2.5 text-river-200">{r.details.length > 0 ? <DetailRows rows={r.details} /> : <span className="text-river-300">—</span>}</td>
               </tr>
             ))}
           </tbody>
@@ -165,6 +168,26 @@ function LedgerTable({ ledger, base, filter }: { ledger: LedgerPage; base: strin
         </div>
       </nav>
     </>
+  );
+}
+
+/** An entry's particulars as key/value rows. */
+function DetailRows({ rows }: { rows: DetailRow[] }) {
+  return (
+    <dl className="grid min-w-[14rem] grid-cols-[max-content_minmax(0,1fr)] gap-x-3 gap-y-0.5 text-xs">
+      {rows.map((row, i) =>
+        row.label === "" ? (
+          <dd key={i} className="col-span-2 font-mono break-words text-river-100">
+            {row.value}
+          </dd>
+        ) : (
+          <div key={i} className="contents">
+            <dt className="text-river-300">{row.label}</dt>
+            <dd className="font-mono break-words text-river-100">{row.value}</dd>
+          </div>
+        ),
+      )}
+    </dl>
   );
 }
 

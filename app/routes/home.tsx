@@ -101,9 +101,10 @@ export default function Home() {
             <article className="rounded-lg border border-river-800 border-l-4 border-l-sand-400 bg-river-900 p-6">
               <h3 className="text-lg font-medium text-river-50">Estimates are statistical</h3>
               <p className="mt-2 leading-relaxed text-river-200">
-                Every number Weir reports is an estimate and comes with its interval. Small
-                subsets get wide intervals. For billing or legal disputes, rely on exact
-                accounting, not on a sample.
+                Every estimate Weir reports comes with its 95% interval, and small subsets get
+                wide ones; the totals it counts exactly (records, bytes and packets per window)
+                are labelled exact. For billing or legal disputes, rely on exact accounting,
+                not on a sample.
               </p>
             </article>
             <article className="rounded-lg border border-river-800 border-l-4 border-l-sand-400 bg-river-900 p-6">

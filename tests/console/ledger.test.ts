@@ -1,5 +1,6 @@
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { recordAudit } from "~/audit.server";
+import { describeDetail } from "~/people/ledger-format";
 import { ensureUserByEmail, setMembership } from "~/auth/users.server";
 import type { Role } from "~/db/schema.server";
 import { createTenant } from "~/tenants.server";
@@ -46,6 +47,9 @@ describe("Ledger", () => {
     const at = async (ms: number) => db.$client.execute({ sql: "UPDATE audit_log SET at = ? WHERE id = (SELECT max(id) FROM audit_log)", args: [ms] });
     await recordAudit(db, { tenantId: riverline.id, actor: { id: eliUser.id, label: "eli-engineer" }, action: "settings.update", target: "sample size", detail: { from: 1024, to: 2048 } });
     await at(MARCH_1 + 10 * DAY);
+    // A roll-up run with its real particulars (rollup.server.ts), against a collector with a long name.
+    await recordAudit(db, { tenantId: riverline.id, actor: { id: null, label: "retention" }, action: "retention.run", target: "pop-north-metro-aggregation-router-07", detail: { asOf: "2025-03-11T04:00:00.000Z", hoursRolledUp: 3, windowsDeleted: 12 } });
+    await at(MARCH_1 + 10 * DAY);
     // Not riverline's: another tenant's entry, and the sign-in of someone who is not a member.
     await recordAudit(db, { tenantId: tributary.id, actor: { id: oskarUser.id, label: "oskar-outsider" }, action: "key.revoke", target: "weir_tributary1" });
     await at(MARCH_1 + 10 * DAY);
@@ -75,8 +79,10 @@ describe("Ledger", () => {
     // 120 key entries: pages of 50, 50 and 20.
     expect(actionsShown(third)).toHaveLength(20);
     expect(third).toContain("Entries 101–120 of 120");
-    // Common practice for audit logs: exact UTC time to the second; the oldest entry ends the last page.
-    expect(third).toContain("2025-03-01T00:00:00Z");
+    // Common practice for audit logs: exact UTC time to the second, written as every console time is
+    // (formatUtc: 24-hour, "YYYY-MM-DD HH:MM", UTC); the oldest entry ends the last page.
+    expect(third).toContain("2025-03-01 00:00:00 UTC");
+    expect(third).not.toMatch(/\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}Z/);
     expect(third).toContain("weir_00000000");
     const past = await ada.fetch("/t/riverline/ledger?action=key.create&page=4");
     expect(past.status).toBe(200);
@@ -86,8 +92,8 @@ describe("Ledger", () => {
   it("filters by action, actor and dates, keeping the filters in the page links", async () => {
     const settings = await visible(await ada.fetch("/t/riverline/ledger?action=settings.update"));
     expect(actionsShown(settings)).toEqual(["settings.update"]);
-    // Details are read from the JSON: {from: 1024, to: 2048}.
-    expect(settings).toContain("1024 → 2048");
+    // Details are read from the JSON, {from: 1024, to: 2048}, as a key/value row.
+    expect(settings).toMatch(/<dt[^>]*>change<\/dt><dd[^>]*>1024 → 2048<\/dd>/);
 
     // Matched case-insensitively within the login.
     const eli = actionsShown(await visible(await ada.fetch("/t/riverline/ledger?actor=ELI")));
@@ -98,8 +104,8 @@ describe("Ledger", () => {
     // From and To are UTC days, To included: 2 March holds the entries of hours 24..47.
     const day = await visible(await ada.fetch("/t/riverline/ledger?action=key.create&from=2025-03-02&to=2025-03-02"));
     expect(actionsShown(day)).toHaveLength(24);
-    expect(day).toContain("2025-03-02T23:00:00Z");
-    expect(day).not.toContain("2025-03-03T00:00:00Z");
+    expect(day).toContain("2025-03-02 23:00:00 UTC");
+    expect(day).not.toContain("2025-03-03 00:00:00 UTC");
 
     const paged = await visible(await ada.fetch("/t/riverline/ledger?action=key.create&from=2025-03-01&to=2025-03-05"));
     expect(paged).toContain("page 1 of 3");
@@ -108,6 +114,19 @@ describe("Ledger", () => {
     const none = await visible(await ada.fetch("/t/riverline/ledger?from=2030-01-01"));
     expect(actionsShown(none)).toEqual([]);
     expect(none).toContain("No entries match these filters");
+  });
+
+  it("shows particulars as key/value rows, in the console's time format, and never splits names mid-word", async () => {
+    const html = await visible(await ada.fetch("/t/riverline/ledger?action=retention.run"));
+    expect(actionsShown(html)).toEqual(["retention.run"]);
+    expect(html).toMatch(/<dt[^>]*>as of<\/dt><dd[^>]*>2025-03-11 04:00:00 UTC<\/dd>/);
+    expect(html).toMatch(/<dt[^>]*>hours rolled up<\/dt><dd[^>]*>3<\/dd>/);
+    expect(html).toMatch(/<dt[^>]*>windows deleted<\/dt><dd[^>]*>12<\/dd>/);
+    // No raw JSON in the table, and no CSS that breaks a word at any letter (CSS Text 3 §5.2 word-break: break-all).
+    const table = html.slice(html.indexOf("<table"), html.indexOf("</table>"));
+    expect(table).not.toMatch(/\{&quot;|\{"/);
+    expect(table).not.toContain("break-all");
+    expect(table).toContain("pop-north-metro-aggregation-router-07");
   });
 
   it("answers 400 with the reason for filters it cannot use", async () => {
@@ -132,6 +151,23 @@ describe("Ledger", () => {
     const own = await visible(await oskar.fetch("/t/tributary/ledger"));
     expect(own).toContain("weir_tributary1");
     expect(own).not.toContain("weir_00000000");
+  });
+});
+
+describe("ledger particulars as rows (describeDetail)", () => {
+  it("reads before/after objects field by field, lists, times, and keeps unreadable text as stored", () => {
+    // settings.update stores { old: {...}, new: {...} } (settings.server.ts).
+    expect(describeDetail(JSON.stringify({ old: { sampleSize: 1024, windowSeconds: 300 }, new: { sampleSize: 2048, windowSeconds: 60 } }))).toEqual([
+      { label: "sample size", value: "1024 → 2048" },
+      { label: "window seconds", value: "300 → 60" },
+    ]);
+    expect(describeDetail(JSON.stringify({ role: "engineer", expiresAt: Date.UTC(2025, 2, 8, 14, 5, 9) }))).toEqual([
+      { label: "role", value: "engineer" },
+      { label: "expires at", value: "2025-03-08 14:05:09 UTC" },
+    ]);
+    expect(describeDetail(JSON.stringify({ collectors: ["pop-a", "pop-b"] }))).toEqual([{ label: "collectors", value: "pop-a, pop-b" }]);
+    expect(describeDetail("not json")).toEqual([{ label: "", value: "not json" }]);
+    expect(describeDetail(null)).toEqual([]);
   });
 });
 
