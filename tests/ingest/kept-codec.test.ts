@@ -1,6 +1,6 @@
 import fc from "fast-check";
 import { describe, expect, it } from "vitest";
-import { decodeKeptRow, encodeKeptRows, KEPT_ROW_BYTES, keptRowsToColumns, packFlowRecords } from "~/ingest/kept-codec";
+import { decodeKeptRow, encodeKeptRows, KEPT_ROW_BYTES, keptRowsToColumns, keptRowsToColumnsPortable, packFlowRecords } from "~/ingest/kept-codec";
 import type { FlowRecord } from "~/flow/record";
 import { toColumns } from "~/query/columns";
 
@@ -52,6 +52,13 @@ describe("kept-record rows", () => {
         // Every column, the optional AS numbers and interfaces with their presence bits included, as
         // a live reservoir lays the same records out (the two paths a query reads).
         expect(c).toEqual(toColumns(rows));
+        // The same from rows that do not start on an 8-byte boundary (a slice of a larger buffer),
+        // and from the DataView reading that any byte order takes.
+        const data = encodeKeptRows(rows);
+        const shifted = new Uint8Array(data.byteLength + 4);
+        shifted.set(data, 4);
+        expect(keptRowsToColumns(shifted.subarray(4))).toEqual(c);
+        expect(keptRowsToColumnsPortable(data)).toEqual(c);
       }),
     );
   });
