@@ -53,6 +53,12 @@ export interface IntakeCollector {
   lastSeenAt: number | null;
   /** Never sent a batch, but holds samples imported from sample files: not expected to send. */
   importsOnly: boolean;
+  /**
+   * Since the collector was created (collectors table): records accepted late (start before the
+   * open window), accepted with a time ahead of the server clock within the tolerance, refused
+   * (or, from the listeners, dropped) for their times; and IANA elements of JSON records ignored.
+   */
+  timeChecks: { late: number; clockSkewed: number; refused: number; ignoredFields: number };
   /** A copy (filled by sample-file imports): the collectors its files came from; null for a stream collector. */
   copyOf: string[] | null;
   quiet: boolean;
@@ -111,6 +117,7 @@ async function intakeSnapshot(
     // Merged collectors receive no records; the Merge page lists them.
     run(
       "SELECT c.id, c.name, c.last_seen_at, EXISTS (SELECT 1 FROM reservoirs r WHERE r.collector_id = c.id AND r.records > 0), c.copy_of " +
+        ", c.late_records AS late_records, c.clock_skewed_records AS clock_skewed_records, c.time_refused_records AS time_refused_records, c.ignored_fields AS ignored_fields " +
         "FROM collectors c WHERE c.tenant_id = ? AND c.kind = 'stream' ORDER BY c.name",
       [tenant.id],
     ),
@@ -176,6 +183,12 @@ async function intakeSnapshot(
       name: String(row[1]),
       lastSeenAt,
       importsOnly,
+      timeChecks: {
+        late: Number(row.late_records),
+        clockSkewed: Number(row.clock_skewed_records),
+        refused: Number(row.time_refused_records),
+        ignoredFields: Number(row.ignored_fields),
+      },
       copyOf: row[4] === null ? null : (JSON.parse(String(row[4])) as string[]),
       quiet: (lastSeenAt === null && !importsOnly) || (lastSeenAt !== null && now - lastSeenAt > QUIET_AFTER_WINDOWS * windowMs),
       recordsLastMinute: rate.records,

@@ -60,6 +60,24 @@ export function IntakeTable({ snapshot }: { snapshot: IntakeSnapshot }) {
               <th scope="col" rowSpan={2} className="py-2 align-bottom font-medium">
                 Last seen
               </th>
+              <th
+                scope="col"
+                rowSpan={2}
+                className="py-2 pl-3 text-right align-bottom font-medium"
+                title="Flow times checked on arrival, counted since the collector was created"
+              >
+                Record times
+                <span className="block font-normal">late · clock ahead · refused</span>
+              </th>
+              <th
+                scope="col"
+                rowSpan={2}
+                className="py-2 pl-3 text-right align-bottom font-medium"
+                title="Fields of JSON records that name an IANA IPFIX element Weir does not store, summed over records since the collector was created"
+              >
+                Ignored fields
+                <span className="block font-normal">IPFIX elements not stored</span>
+              </th>
             </tr>
             <tr className="border-b border-river-700 text-xs text-river-300">
               {windows.map((start) => (
@@ -88,6 +106,7 @@ export function IntakeTable({ snapshot }: { snapshot: IntakeSnapshot }) {
                   </td>
                 ))}
                 <td colSpan={3} />
+                <td colSpan={2} />
               </tr>
             </tfoot>
           ) : null}
@@ -99,6 +118,8 @@ export function IntakeTable({ snapshot }: { snapshot: IntakeSnapshot }) {
         Records per second count the batches received; bytes per window count each record in the window of its start time, late ones included.
         Under each name, where its records come from: API keys (JSON over HTTP), claimed exporters (IPFIX and NetFlow v9 listeners) and IPFIX files; bright when
         records arrived that way in the last {snapshot.sourcesHours} h.
+        Record times count, since each collector was created, records accepted late (start before the open window), accepted with a time ahead of the server
+        clock (within the tolerance), and refused for their times; ignored fields count IPFIX elements in JSON records that Weir does not store.
       </p>
     </div>
   );
@@ -157,7 +178,43 @@ function CollectorRow({ c, snapshot }: { c: IntakeCollector; snapshot: IntakeSna
           <span className="text-sand-200">never</span>
         )}
       </td>
+      <TimeChecks c={c} />
     </tr>
+  );
+}
+
+/** The collector's time counters and ignored fields (collectors table), each with what it counts. */
+function TimeChecks({ c }: { c: IntakeCollector }) {
+  const { late, clockSkewed, refused, ignoredFields } = c.timeChecks;
+  const count = (n: number) => n.toLocaleString("en-US");
+  return (
+    <>
+      <td className="py-2 pl-3 text-right font-mono whitespace-nowrap">
+        <span title="Accepted with a start before the open window (late, within the tenant's retention)" className={late > 0 ? "text-river-100" : "text-river-400"}>
+          {count(late)}
+        </span>
+        <span className="text-river-500"> · </span>
+        <span
+          title="Accepted with a start or end ahead of the server clock, within INGEST_FUTURE_TOLERANCE_SECONDS (the exporter's clock runs ahead)"
+          className={clockSkewed > 0 ? "text-sand-200" : "text-river-400"}
+        >
+          {count(clockSkewed)}
+        </span>
+        <span className="text-river-500"> · </span>
+        <span
+          title="Refused for their times (batches over HTTP answered 400; records from the listeners dropped): too far ahead of the server clock, before INGEST_TIME_FLOOR, or older than the tenant's retention keeps"
+          className={refused > 0 ? "text-sand-200" : "text-river-400"}
+        >
+          {count(refused)}
+        </span>
+      </td>
+      <td
+        className="py-2 pl-3 text-right font-mono"
+        title="Fields of accepted JSON records that name an IANA IPFIX element Weir does not store (tcpControlBits, vlanId, …); the ingest answer lists them by name"
+      >
+        <span className={ignoredFields > 0 ? "text-river-100" : "text-river-400"}>{count(ignoredFields)}</span>
+      </td>
+    </>
   );
 }
 
