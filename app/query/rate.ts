@@ -48,6 +48,17 @@ export function toRate(value: number, metric: Metric, seconds: number): number {
   return (value * (metric === "bytes" ? BITS_PER_BYTE : 1)) / seconds;
 }
 
+/**
+ * The seconds of a window that have passed at `now`: its whole length once closed, the time
+ * since its start while open (at least 1 s, so a window just opened does not divide by 0).
+ *
+ * @example windowSecondsSoFar(0, 300, 120_000) // 120
+ * @example windowSecondsSoFar(0, 300, 900_000) // 300
+ */
+export function windowSecondsSoFar(windowStart: number, windowSeconds: number, now: number): number {
+  return Math.min(windowSeconds, Math.max(1, (now - windowStart) / 1000));
+}
+
 /** A rate with its error: the totals' fields times one constant factor. */
 export interface RateJson {
   unit: RateUnit;

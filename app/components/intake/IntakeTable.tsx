@@ -1,5 +1,6 @@
 import type { CollectorSources, IntakeCollector, IntakeSnapshot, OpenReservoir, SourceUse } from "~/routes/console.intake-data";
-import { counterValue, exactMetric, formatBytes, formatMetric, formatUtc } from "~/slice/format";
+import { counterValue, exactMetric, exactRate, formatBytes, formatMetric, formatRate, formatUtc } from "~/slice/format";
+import { toRate, windowSecondsSoFar } from "~/query/rate";
 import { age } from "~/components/ui";
 
 const timeOfDay = (ms: number) => new Date(ms).toISOString().slice(11, 16);
@@ -48,7 +49,7 @@ export function IntakeTable({ snapshot }: { snapshot: IntakeSnapshot }) {
                 <span className="block font-normal">last {snapshot.rateSeconds} s</span>
               </th>
               <th scope="colgroup" colSpan={windows.length} className="border-b border-river-800 px-3 pt-2 pb-1 text-center font-medium">
-                Bytes per window (exact, UTC start)
+                Bytes and bit/s per window (exact, UTC start)
               </th>
               <th scope="col" rowSpan={2} className="py-2 pr-3 pl-3 align-bottom font-medium">
                 Reservoir fill
@@ -103,6 +104,7 @@ export function IntakeTable({ snapshot }: { snapshot: IntakeSnapshot }) {
                 {totals.map((bytes, i) => (
                   <td key={windows[i]} className="px-3 py-2 text-right font-mono" title={exactMetric(bytes.toString(), "bytes")}>
                     {formatBytes(Number(bytes))}
+                    <BitRate bytes={Number(bytes)} start={windows[i]} snapshot={snapshot} />
                   </td>
                 ))}
                 <td colSpan={3} />
@@ -115,7 +117,8 @@ export function IntakeTable({ snapshot }: { snapshot: IntakeSnapshot }) {
       <p className="text-xs text-river-300">
         Quiet: no batch for more than {snapshot.quietAfterWindows} windows ({windowLength(snapshot.quietAfterWindows * snapshot.windowSeconds)}), or never (a collector fed only by uploaded
         sample files shows "imports only" instead).
-        Records per second count the batches received; bytes per window count each record in the window of its start time, late ones included.
+        Records per second count the batches received; bytes per window count each record in the window of its start time, late ones included; bit/s
+        is those exact bytes × 8 ÷ the window's length (the open window: ÷ the seconds passed so far).
         Under each name, where its records come from: API keys (JSON over HTTP), claimed exporters (IPFIX and NetFlow v9 listeners) and IPFIX files; bright when
         records arrived that way in the last {snapshot.sourcesHours} h.
         Record times count, since each collector was created, records accepted late (start before the open window), accepted with a time ahead of the server
@@ -155,6 +158,7 @@ function CollectorRow({ c, snapshot }: { c: IntakeCollector; snapshot: IntakeSna
         <td key={w.start} className="px-3 py-2 text-right font-mono" title={`${exactMetric(w.bytes, "bytes")} in ${w.records.toLocaleString("en-US")} records`}>
           <span className={counterValue(w.bytes) === 0 ? "text-river-400" : "text-river-100"}>{formatBytes(counterValue(w.bytes))}</span>
           <span className="block text-xs text-river-300">{w.records.toLocaleString("en-US")} rec</span>
+          <BitRate bytes={counterValue(w.bytes)} start={w.start} snapshot={snapshot} />
         </td>
       ))}
       <td className="py-2 pr-3 pl-3">
@@ -215,6 +219,26 @@ function TimeChecks({ c }: { c: IntakeCollector }) {
         <span className={ignoredFields > 0 ? "text-river-100" : "text-river-400"}>{count(ignoredFields)}</span>
       </td>
     </>
+  );
+}
+
+/**
+ * A window's exact bytes as bit/s: × 8 ÷ the window's seconds, or for the open window ÷ the
+ * seconds passed so far (rate.ts), marked "so far".
+ */
+function BitRate({ bytes, start, snapshot }: { bytes: number; start: number; snapshot: IntakeSnapshot }) {
+  const seconds = windowSecondsSoFar(start, snapshot.windowSeconds, snapshot.now);
+  const open = seconds < snapshot.windowSeconds;
+  const bitsPerSecond = toRate(bytes, "bytes", seconds);
+  return (
+    <span
+      className="block text-xs text-river-300"
+      data-bit-rate={bitsPerSecond}
+      title={`${exactRate(bitsPerSecond, "bytes")}: exact bytes × 8 ÷ ${seconds.toLocaleString("en-US", { maximumFractionDigits: 1 })} s${open ? " passed so far in this open window" : ""}`}
+    >
+      {formatRate(bitsPerSecond, "bytes")}
+      {open ? " so far" : ""}
+    </span>
   );
 }
 
