@@ -99,9 +99,8 @@ export function parseRfc3339(text: string, options: Rfc3339Options = {}): number
   const minute = digits(text, 14, 2);
   if (hour < 0 || minute < 0 || text[13] !== ":") return bad;
   if (text[16] !== ":") {
-    return digits(text, 17, 2) < 0 && /^(?:[Zz]|[+-]\d\d:\d\d)$/.test(text.slice(16))
-      ? `needs seconds (RFC 3339 §5.6 partial-time): ${text.slice(0, 16)}:00${text.slice(16)}`
-      : bad;
+    if (text.length === 16) return `needs seconds and an offset (RFC 3339 §5.6 date-time), e.g. ${text}:00Z`;
+    return /^(?:[Zz]|[+-]\d\d:\d\d)$/.test(text.slice(16)) ? `needs seconds (RFC 3339 §5.6 partial-time): ${text.slice(0, 16)}:00${text.slice(16)}` : bad;
   }
   const second = digits(text, 17, 2);
   if (second < 0) return bad;

@@ -126,8 +126,8 @@ describe("POST and DELETE /api/v1/merge", () => {
       expect(error.code).toBe("invalid_request");
       const paths = error.details.map((d: { path: string }) => d.path).sort();
       expect(paths).toEqual(["collectors", "colour", "from", "name", "preview", "sampleSize"]);
-      // An ISO 8601 time without a zone is ambiguous (RFC 3339 §4.3 requires an offset).
-      expect(error.details.find((d: { path: string }) => d.path === "from").message).toContain("needs a timezone");
+      // A time without an offset is ambiguous (RFC 3339 §4.4); RFC 3339 §5.6 also requires seconds.
+      expect(error.details.find((d: { path: string }) => d.path === "from").message).toContain("needs seconds and an offset");
       expect(error.details.find((d: { path: string }) => d.path === "sampleSize").message).toBe("must be at least 16");
     });
 

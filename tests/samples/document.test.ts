@@ -217,7 +217,7 @@ describe("the sample file", () => {
 
     const typo = file();
     typo.windows[1].kept[0].record.dprot = 443;
-    expect(issues(typo)).toEqual([expect.stringMatching(/^windows\[1\]\.kept\[0\]\.record: dprot: is not a known field .*did you mean dport\?$/)]);
+    expect(issues(typo)).toEqual([expect.stringMatching(/^windows\[1\]\.kept\[0\]\.record: dprot: is neither a Weir field nor an IPFIX information element name .*did you mean dport\?$/)]);
   });
 
   it("rejects a weight that is not the record's counter, a record outside its window, a window outside [from, to), a repeated window", () => {

@@ -51,6 +51,7 @@ describe("RFC 3339 §5.6 grammar", () => {
   test("partial-time requires seconds, and date-time requires an offset (§4.4)", () => {
     expect(parseRfc3339("2024-05-01T02:00Z")).toMatch(/^needs seconds \(RFC 3339 §5.6 partial-time\): 2024-05-01T02:00:00Z/);
     expect(parseRfc3339("2024-05-01T02:00:00")).toMatch(/^needs an offset/);
+    expect(parseRfc3339("2024-05-01T02:00")).toBe("needs seconds and an offset (RFC 3339 §5.6 date-time), e.g. 2024-05-01T02:00:00Z");
   });
 
   test("full-date alone only where asked for, as UTC midnight", () => {
