@@ -125,12 +125,20 @@ export interface QueryField {
   column: FieldColumn;
   /** Drops the records it matches instead of keeping them. */
   exclude?: boolean;
-  /** `groupBy` key and heading; absent: not a group-by. */
-  groupBy?: { key: string; label: string };
+  /**
+   * `groupBy` key and heading; absent: not a group-by. `none`: how the console shows the group
+   * of records without the value (an optional field; the API's key is "none").
+   */
+  groupBy?: { key: string; label: string; none?: string };
   /** The docs table's line: what it matches, in plain words. */
   doc: string;
-  /** The Slice form's chip input; absent: the form has a control of its own (protocols, collectors) or none. */
+  /**
+   * The Slice form's chip input (the placeholder says what to type in words, so it never reads
+   * as a value); absent: the form has a control of its own (protocols, collectors) or none.
+   */
   input?: { section: InputSection; label: string; placeholder: string; hint?: string };
+  /** Where the form asks for a field with a control of its own, for the docs. */
+  formControl?: string;
 }
 
 /**
@@ -144,7 +152,7 @@ export const QUERY_FIELDS = [
     column: "src",
     groupBy: { key: "src", label: "Source prefix" },
     doc: "source address in any of these CIDR prefixes (IPv4 or IPv6; a bare address is a /32 or /128); grouped by `prefixLength`",
-    input: { section: "source", label: "Source in", placeholder: "198.51.100.0/24" },
+    input: { section: "source", label: "Source in", placeholder: "add a CIDR, e.g. 198.51.100.0/24" },
   },
   {
     name: "dst",
@@ -152,7 +160,7 @@ export const QUERY_FIELDS = [
     column: "dst",
     groupBy: { key: "dst", label: "Destination prefix" },
     doc: "destination address in any of these CIDR prefixes; grouped by `prefixLength`",
-    input: { section: "destination", label: "Destination in", placeholder: "203.0.113.0/24" },
+    input: { section: "destination", label: "Destination in", placeholder: "add a CIDR, e.g. 203.0.113.0/24" },
   },
   {
     name: "srcExclude",
@@ -160,7 +168,7 @@ export const QUERY_FIELDS = [
     column: "src",
     exclude: true,
     doc: "source address in none of these CIDR prefixes",
-    input: { section: "source", label: "Source not in", placeholder: "2001:db8:ff::/48" },
+    input: { section: "source", label: "Source not in", placeholder: "add a CIDR, e.g. 2001:db8:ff::/48" },
   },
   {
     name: "dstExclude",
@@ -168,7 +176,7 @@ export const QUERY_FIELDS = [
     column: "dst",
     exclude: true,
     doc: "destination address in none of these CIDR prefixes",
-    input: { section: "destination", label: "Destination not in", placeholder: "192.0.2.0/25" },
+    input: { section: "destination", label: "Destination not in", placeholder: "add a CIDR, e.g. 192.0.2.0/25" },
   },
   {
     name: "sport",
@@ -176,7 +184,7 @@ export const QUERY_FIELDS = [
     column: "sport",
     groupBy: { key: "sport", label: "Source port" },
     doc: "source transport port (`sourceTransportPort`) equal to one of these ports or in one of these ranges",
-    input: { section: "ports", label: "Source ports", placeholder: "1024-65535" },
+    input: { section: "ports", label: "Source ports", placeholder: "add a port or range, e.g. 1024-65535" },
   },
   {
     name: "dport",
@@ -184,7 +192,7 @@ export const QUERY_FIELDS = [
     column: "dport",
     groupBy: { key: "dport", label: "Destination port" },
     doc: "destination transport port (`destinationTransportPort`) equal to one of these ports or in one of these ranges",
-    input: { section: "ports", label: "Destination ports", placeholder: "443" },
+    input: { section: "ports", label: "Destination ports", placeholder: "add a port or range, e.g. 443" },
   },
   {
     name: "proto",
@@ -192,17 +200,18 @@ export const QUERY_FIELDS = [
     column: "proto",
     groupBy: { key: "proto", label: "Protocol" },
     doc: "IP protocol number (`protocolIdentifier`, IANA registry: 6 TCP, 17 UDP) one of these",
+    formControl: "Ports and protocols: Protocols (common ones as checkboxes, others by number)",
   },
   {
     name: "srcAs",
     value: "asn",
     column: "srcAs",
-    groupBy: { key: "srcAs", label: "Source AS" },
+    groupBy: { key: "srcAs", label: "Source AS", none: "none (no source AS sent)" },
     doc: "source AS number (`bgpSourceAsNumber`) equal to one of these or in one of these ranges; a record without one never matches",
     input: {
       section: "routing",
       label: "Source AS numbers",
-      placeholder: "64496-64511",
+      placeholder: "add an AS number or range, e.g. 64496-64511",
       hint: "AS numbers 0–4294967295 (RFC 6793), or ranges. Records without a source AS never match.",
     },
   },
@@ -210,12 +219,12 @@ export const QUERY_FIELDS = [
     name: "dstAs",
     value: "asn",
     column: "dstAs",
-    groupBy: { key: "dstAs", label: "Destination AS" },
+    groupBy: { key: "dstAs", label: "Destination AS", none: "none (no destination AS sent)" },
     doc: "destination AS number (`bgpDestinationAsNumber`), as for `srcAs`",
     input: {
       section: "routing",
       label: "Destination AS numbers",
-      placeholder: "65536-65551",
+      placeholder: "add an AS number or range, e.g. 65536-65551",
       hint: "AS numbers 0–4294967295 (RFC 6793), or ranges. Records without a destination AS never match.",
     },
   },
@@ -223,12 +232,12 @@ export const QUERY_FIELDS = [
     name: "inIf",
     value: "ifIndex",
     column: "ingressInterface",
-    groupBy: { key: "inIf", label: "Input interface" },
+    groupBy: { key: "inIf", label: "Input interface", none: "none (no input interface sent)" },
     doc: "input interface index (`ingressInterface`, an ifIndex of RFC 2863) equal to one of these or in one of these ranges; a record without one never matches",
     input: {
       section: "routing",
       label: "Input interfaces",
-      placeholder: "1-48",
+      placeholder: "add an interface index or range, e.g. 1-48",
       hint: "Interface indexes (ifIndex, RFC 2863) as the exporter numbers them, or ranges. Records without one never match.",
     },
   },
@@ -236,12 +245,12 @@ export const QUERY_FIELDS = [
     name: "outIf",
     value: "ifIndex",
     column: "egressInterface",
-    groupBy: { key: "outIf", label: "Output interface" },
+    groupBy: { key: "outIf", label: "Output interface", none: "none (no output interface sent)" },
     doc: "output interface index (`egressInterface`), as for `inIf`",
     input: {
       section: "routing",
       label: "Output interfaces",
-      placeholder: "49",
+      placeholder: "add an interface index or range, e.g. 49",
       hint: "Interface indexes (ifIndex, RFC 2863) as the exporter numbers them, or ranges. Records without one never match.",
     },
   },
@@ -251,6 +260,7 @@ export const QUERY_FIELDS = [
     column: "collector",
     groupBy: { key: "collector", label: "Collector" },
     doc: "collector one of these names; none given: every stream collector (merges and copies count only when named)",
+    formControl: "Collectors (checkboxes)",
   },
   {
     name: "window",
@@ -337,7 +347,7 @@ export function queryFieldsMarkdown(): string {
   for (const f of QUERY_FIELDS as readonly QueryField[]) {
     const items = f.value === null ? "—" : KIND_DOC[f.value];
     const group = f.groupBy ? `\`${f.groupBy.key}\` (${f.groupBy.label})` : "—";
-    const input = f.input ? `${INPUT_SECTIONS[f.input.section]}: ${f.input.label}` : f.value === null ? "Group by" : "own control";
+    const input = f.input ? `${INPUT_SECTIONS[f.input.section]}: ${f.input.label}` : (f.formControl ?? "—");
     lines.push(`| \`${f.name}\` | ${cell(items)} | ${cell(f.doc)} | ${cell(group)} | ${cell(input)} |`);
   }
   lines.push("");

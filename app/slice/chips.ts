@@ -6,6 +6,7 @@
  * Pure module: no I/O, usable in the browser and on the server.
  */
 import { formatPrefix, parsePrefix } from "../net/prefix.ts";
+import { UNSIGNED32_MAX, type ValueKind } from "../query/fields.ts";
 
 export type ChipCheck = { ok: true; value: string } | { ok: false; message: string };
 
@@ -48,6 +49,51 @@ export function checkPortChip(text: string): ChipCheck {
   return { ok: true, value: low === high ? String(low) : `${low}-${high}` };
 }
 
+/** A whole number 0–max or an inclusive range of them, in normal form ("64496" or "64496-64511"). */
+function numberRangeChip(text: string, form: string, limit: string, max: number): ChipCheck {
+  const trimmed = text.trim();
+  if (/^-\s*\d/.test(trimmed)) return { ok: false, message: `${form} Negative numbers are not valid.` };
+  const m = /^(\d+)(?:\s*-\s*(\d+))?$/.exec(trimmed);
+  if (!m) return { ok: false, message: form };
+  const low = Number(m[1]);
+  const high = m[2] === undefined ? low : Number(m[2]);
+  if (low > max || high > max) return { ok: false, message: `${form} ${limit}` };
+  if (low > high) return { ok: false, message: `That range ends before it starts; did you mean "${high}-${low}"?` };
+  return { ok: true, value: low === high ? String(low) : `${low}-${high}` };
+}
+
+/**
+ * An AS number or an inclusive range of them: 4-octet AS numbers run to 4294967295 (RFC 6793).
+ *
+ * @example checkAsChip("64496")        // { ok: true, value: "64496" }
+ * @example checkAsChip("65536 - 65551") // { ok: true, value: "65536-65551" }
+ * @example checkAsChip("4294967296")   // { ok: false, message: "An AS number is 0–4294967295, or a range such as \"64496-64511\". AS numbers stop at 4294967295 (4-octet AS numbers, RFC 6793)." }
+ */
+export function checkAsChip(text: string): ChipCheck {
+  return numberRangeChip(
+    text,
+    'An AS number is 0–4294967295, or a range such as "64496-64511".',
+    "AS numbers stop at 4294967295 (4-octet AS numbers, RFC 6793).",
+    UNSIGNED32_MAX,
+  );
+}
+
+/**
+ * An interface index (ifIndex, RFC 2863, as the exporter numbers its interfaces) or an
+ * inclusive range of them; IPFIX carries them as unsigned32 (RFC 7012).
+ *
+ * @example checkInterfaceChip("1-48") // { ok: true, value: "1-48" }
+ * @example checkInterfaceChip("eth0") // { ok: false, message: "An interface index is a number 0–4294967295 (ifIndex), or a range such as \"1-48\"." }
+ */
+export function checkInterfaceChip(text: string): ChipCheck {
+  return numberRangeChip(
+    text,
+    'An interface index is a number 0–4294967295 (ifIndex), or a range such as "1-48".',
+    "Interface indexes stop at 4294967295 (RFC 7012 unsigned32).",
+    UNSIGNED32_MAX,
+  );
+}
+
 /** The IP protocols the form names (IANA Assigned Internet Protocol Numbers). */
 export const COMMON_PROTOCOLS = [
   { number: 6, name: "TCP" },
@@ -88,3 +134,15 @@ export function protocolLabel(value: string): string {
   const known = COMMON_PROTOCOLS.find((p) => String(p.number) === value);
   return known ? `${known.name} (${known.number})` : value;
 }
+
+/**
+ * The chip check of each kind of filter item (fields.ts), so a field's input in the form checks
+ * what the API takes. Collectors are picked from a list, not typed.
+ */
+export const CHIP_CHECKS: Record<Exclude<ValueKind, "collector">, (text: string) => ChipCheck> = {
+  prefix: checkPrefixChip,
+  port: checkPortChip,
+  protocol: checkProtocolChip,
+  asn: checkAsChip,
+  ifIndex: checkInterfaceChip,
+};

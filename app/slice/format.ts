@@ -8,7 +8,7 @@
  */
 import type { Counter } from "../query/answer.ts";
 import type { IntervalMethod } from "../sampling/interval.ts";
-import type { GroupByKind, Metric } from "../query/request.ts";
+import type { Metric } from "../query/request.ts";
 
 const BYTE_UNITS = ["B", "KB", "MB", "GB", "TB", "PB", "EB", "ZB"];
 const COUNT_UNITS = ["", "k", "M", "G", "T", "P", "E"];
@@ -235,13 +235,5 @@ export function intervalText(e: { estimate: number; ci95: [number, number]; meth
   return formatMetricRange(low, high, metric);
 }
 
-/** What each group-by kind is called in the form and in result headings. */
-export const GROUP_LABELS: Record<GroupByKind, string> = {
-  src: "Source prefix",
-  dst: "Destination prefix",
-  sport: "Source port",
-  dport: "Destination port",
-  proto: "Protocol",
-  collector: "Collector",
-  window: "Window start (UTC)",
-};
+/** What each group-by kind is called in the form and in result headings (fields.ts). */
+export { GROUP_LABELS } from "../query/fields.ts";

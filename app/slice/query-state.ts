@@ -11,6 +11,7 @@
  * Pure module: no I/O, usable in the browser and on the server.
  */
 import { DEFAULT_PREFIX_LENGTH, DEFAULT_TOP, GROUP_BY, MAX_TOP, METRICS, RANK_MODES, UNITS, type GroupByKind, type Metric, type RankMode, type Unit } from "../query/request.ts";
+import { FILTER_FIELDS, FILTER_NAMES, type FilterName } from "../query/fields.ts";
 import { checkProtocolChip } from "./chips.ts";
 
 export const RANGE_PRESETS = {
@@ -24,9 +25,12 @@ export const DEFAULT_PRESET: RangePreset = "24h";
 
 export type SliceRange = { preset: RangePreset } | { from: number; to: number };
 
-/** The list filters, in the order they appear in a URL. */
-export const LIST_FIELDS = ["src", "srcExclude", "dst", "dstExclude", "sport", "dport", "proto", "collectors"] as const;
-export type ListField = (typeof LIST_FIELDS)[number];
+/** The list filters (every filter of fields.ts), in the order they appear in a URL. */
+export const LIST_FIELDS: readonly FilterName[] = FILTER_NAMES;
+export type ListField = FilterName;
+
+/** Protocol names are a convenience of the form; the API takes numbers. */
+const PROTOCOL_LISTS = new Set<string>(FILTER_FIELDS.filter((f) => f.value === "protocol").map((f) => f.name));
 
 export interface SliceState {
   range: SliceRange;
@@ -51,7 +55,7 @@ export interface SliceState {
 export function defaultSliceState(): SliceState {
   return {
     range: { preset: DEFAULT_PRESET },
-    lists: { src: [], srcExclude: [], dst: [], dstExclude: [], sport: [], dport: [], proto: [], collectors: [] },
+    lists: Object.fromEntries(LIST_FIELDS.map((field) => [field, []])) as unknown as Record<ListField, string[]>,
     metric: null,
     groupBy: null,
     prefixLength: { ...DEFAULT_PREFIX_LENGTH },
@@ -157,8 +161,7 @@ export function parseSliceParams(params: URLSearchParams): ParsedSlice {
       .flatMap((v) => v.split(","))
       .map((v) => v.trim())
       .filter((v) => v !== "");
-    // Protocol names are a convenience of the form; the API takes numbers.
-    const values = field === "proto" ? items.map((v) => {
+    const values = PROTOCOL_LISTS.has(field) ? items.map((v) => {
       const checked = checkProtocolChip(v);
       return checked.ok ? checked.value : v;
     }) : items;

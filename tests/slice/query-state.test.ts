@@ -33,6 +33,15 @@ const port = fc.oneof(
   fc.tuple(fc.integer({ min: 0, max: 65535 }), fc.integer({ min: 0, max: 65535 })).map(([a, b]) => (a === b ? String(a) : `${Math.min(a, b)}-${Math.max(a, b)}`)), // the chip's normal form
 );
 const protocol = fc.integer({ min: 0, max: 255 }).map(String);
+/** A whole number or range up to 2^32 − 1 in the chip's normal form: AS numbers (RFC 6793), interface indexes (RFC 7012 unsigned32). */
+const unsigned32 = fc.oneof(
+  fc.constantFrom(64496, 64511, 65536, 65551, 0, 4294967295), // documentation AS numbers (RFC 5398) and the ends
+  fc.integer({ min: 0, max: 4294967295 }),
+);
+const numberRange = fc.oneof(
+  unsigned32.map(String),
+  fc.tuple(unsigned32, unsigned32).map(([a, b]) => (a === b ? String(a) : `${Math.min(a, b)}-${Math.max(a, b)}`)),
+);
 const collector = fc.stringMatching(/^[A-Za-z0-9][A-Za-z0-9._:-]{0,20}$/);
 const list = (item: fc.Arbitrary<string>) => fc.uniqueArray(item, { maxLength: 4 });
 
@@ -55,6 +64,10 @@ const state: fc.Arbitrary<SliceState> = fc.record({
     sport: list(port),
     dport: list(port),
     proto: list(protocol),
+    srcAs: list(numberRange),
+    dstAs: list(numberRange),
+    inIf: list(numberRange),
+    outIf: list(numberRange),
     collectors: list(collector),
   }),
   metric: fc.constantFrom(null, ...METRICS),
@@ -175,6 +188,9 @@ describe("the question as an estimate API call", () => {
         expect(q.where.dstExclude.map(formatPrefix)).toEqual(s.lists.dstExclude);
         expect(q.where.dport.map((r) => (r.low === r.high ? String(r.low) : `${r.low}-${r.high}`))).toEqual(s.lists.dport);
         expect(q.where.proto.map(String)).toEqual(s.lists.proto);
+        for (const field of ["srcAs", "dstAs", "inIf", "outIf"] as const) {
+          expect(q.where[field].map((r) => (r.low === r.high ? String(r.low) : `${r.low}-${r.high}`))).toEqual(s.lists[field]);
+        }
         expect(q.where.collectors).toEqual(s.lists.collectors);
         expect(q.unit).toBe(s.unit);
       }),

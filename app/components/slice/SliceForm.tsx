@@ -1,10 +1,12 @@
 import { useCallback, useEffect, useId, useRef, useState, type KeyboardEvent, type ReactNode } from "react";
 import { Button, inputClass } from "~/components/ui";
+import { INPUT_SECTIONS } from "~/query/fields";
 import { DEFAULT_TOP, GROUP_BY, MAX_TOP, METRICS, type GroupByKind, type Metric } from "~/query/request";
-import { checkPortChip, checkPrefixChip, checkProtocolChip, COMMON_PROTOCOLS, protocolLabel } from "~/slice/chips";
+import { checkProtocolChip, COMMON_PROTOCOLS, protocolLabel } from "~/slice/chips";
 import { RANGE_PRESETS, resolveRange, type RangePreset, type SliceRange, type SliceState } from "~/slice/query-state";
 import { formatUtcMinute, GROUP_LABELS, parseUtcMinute, UTC_MINUTE_PATTERN } from "~/slice/format";
 import { overlapsOf } from "~/query/collector-rule";
+import { FieldInputs } from "./FieldInputs";
 import { ChipInput, PendingTextContext, useSentValue } from "./ChipInput";
 import { SplitRankField } from "./Selection";
 
@@ -76,18 +78,15 @@ export function SliceForm({ state, onChange, collectors, weightAttribute, onHold
       <TimeRange range={state.range} onChange={(range) => set("range", range)} />
 
       <Section title="Source">
-        <ChipInput label="Source in" values={state.lists.src} onChange={(v) => setList("src", v)} check={checkPrefixChip} placeholder="add a CIDR, e.g. 198.51.100.0/24" />
-        <ChipInput label="Source not in" values={state.lists.srcExclude} onChange={(v) => setList("srcExclude", v)} check={checkPrefixChip} placeholder="add a CIDR, e.g. 2001:db8:ff::/48" />
+        <FieldInputs section="source" lists={state.lists} onList={setList} />
       </Section>
 
       <Section title="Destination">
-        <ChipInput label="Destination in" values={state.lists.dst} onChange={(v) => setList("dst", v)} check={checkPrefixChip} placeholder="add a CIDR, e.g. 203.0.113.0/24" />
-        <ChipInput label="Destination not in" values={state.lists.dstExclude} onChange={(v) => setList("dstExclude", v)} check={checkPrefixChip} placeholder="add a CIDR, e.g. 192.0.2.0/25" />
+        <FieldInputs section="destination" lists={state.lists} onList={setList} />
       </Section>
 
       <Section title="Ports and protocols">
-        <ChipInput label="Source ports" values={state.lists.sport} onChange={(v) => setList("sport", v)} check={checkPortChip} placeholder="add a port or range, e.g. 1024-65535" />
-        <ChipInput label="Destination ports" values={state.lists.dport} onChange={(v) => setList("dport", v)} check={checkPortChip} placeholder="add a port or range, e.g. 443" />
+        <FieldInputs section="ports" lists={state.lists} onList={setList} />
         <fieldset className="flex flex-col gap-1.5">
           <legend className="mb-1.5 text-sm font-medium text-river-100">Protocols</legend>
           <div className="flex flex-wrap gap-x-4 gap-y-1">
@@ -117,6 +116,10 @@ export function SliceForm({ state, onChange, collectors, weightAttribute, onHold
             hint="IANA protocol numbers 0–255. None chosen: every protocol."
           />
         </fieldset>
+      </Section>
+
+      <Section title={INPUT_SECTIONS.routing}>
+        <FieldInputs section="routing" lists={state.lists} onList={setList} />
       </Section>
 
       <Collectors known={collectors} chosen={state.lists.collectors} onToggle={(name) => setList("collectors", (c) => (c.includes(name) ? c.filter((x) => x !== name) : [...c, name]))} />
