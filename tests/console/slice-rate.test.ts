@@ -83,6 +83,9 @@ describe("the rate view renders rates", () => {
     expect(page).toContain("Bit/s of the subset, mean over the range");
     expect(page).toContain(formatRate(rate, "bytes"));
     expect(page).toContain(formatRateRange((answer.ci95[0] * 8) / SECONDS, (answer.ci95[1] * 8) / SECONDS, "bytes"));
+    // Here the estimate lies above the range's exact total, where the interval is capped: no negative half-width.
+    expect(answer.estimate).toBeGreaterThan(answer.ci95[1]);
+    expect(page).not.toMatch(/± <span[^>]*>-/);
     // The total stays beside the rate, with the seconds divided by.
     expect(page).toContain("Total over the range");
     expect(page).toContain(`${SECONDS.toLocaleString("en-US")} s of windows`);

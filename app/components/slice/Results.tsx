@@ -96,11 +96,12 @@ export function Headline({
         ) : (
           <MetricValue value={shown.estimate} metric={answer.metric} rate={asRate} className="text-4xl font-semibold text-river-50" />
         )}
-        {answer.method === "normal" ? (
+        {/* Capped at the range's exact total, a normal interval may end below the estimate: then it reads low – high, never "± −x". */}
+        {answer.method === "normal" && plusMinus >= 0 ? (
           <span className="font-mono text-lg text-river-200" title={`95% interval half-width: ${asRate ? exactRate(plusMinus, answer.metric) : exactMetric(plusMinus, answer.metric)}`}>
             ± <MetricValue value={plusMinus} metric={answer.metric} rate={asRate} />
           </span>
-        ) : answer.method === "gamma" ? (
+        ) : answer.method === "gamma" || answer.method === "normal" ? (
           <IntervalValue low={shown.ci95[0]} high={shown.ci95[1]} metric={answer.metric} rate={asRate} className="text-lg text-river-200" />
         ) : null}
         <span className="text-sm text-river-300">{note ? `(95%, ${note})` : "(95%)"}</span>
