@@ -88,6 +88,8 @@ describe("the rate view renders rates", () => {
     expect(page).not.toMatch(/± <span[^>]*>-/);
     // The total stays beside the rate, with the seconds divided by.
     expect(page).toContain("Total over the range");
+    // The question's share is of all traffic in range, labelled as the group table labels it.
+    expect(page).toContain("Share of all traffic");
     expect(page).toContain(`${SECONDS.toLocaleString("en-US")} s of windows`);
     // The p95 of four windows is the largest window's rate, and the page says so.
     const perWindow = rateAnswer("window").groups.map((g) => (g.estimate * 8) / (WINDOW_MS / 1000)).sort((a, b) => a - b);

@@ -122,7 +122,7 @@ export function Headline({
             {answer.kept.toLocaleString("en-US")}
           </span>
         </Stat>
-        <Stat label="Share of exact total" note={<>of <MetricValue value={total.value} metric={answer.metric} /> in range (exact)</>}>
+        <Stat label="Share of all traffic" note={<>of the exact <MetricValue value={total.value} metric={answer.metric} /> in range, whatever the filter</>}>
           <span className="font-mono" title={`estimate ÷ exact total ${exactMetric(total.raw, answer.metric)}`}>
             {formatPercent(share)}
           </span>
