@@ -110,9 +110,21 @@ describe("the Merge page in a browser", () => {
     expect(await page.getByText(/sent and imported/).count()).toBe(1);
     const result = await page.getByText("windows stored").locator("..").innerText();
     expect(result).toMatch(/6/);
-    // The page reloads its data: the new collector can be merged at once.
-    await page.getByRole("checkbox", { name: "pop-a-archive" }).waitFor({ timeout: 10_000 });
+    // The page reloads its data: the new collector can be merged at once, labelled as a copy.
+    const mergeForm = page.locator("form").filter({ has: page.getByRole("button", { name: "Preview" }) });
+    await mergeForm.getByRole("checkbox", { name: "pop-a-archive" }).waitFor({ timeout: 10_000 });
+    expect(await mergeForm.getByText("copy of pop-a", { exact: true }).count(), await mergeForm.innerText()).toBe(1);
     expect(errors, errors.join("\n")).toEqual([]);
+    // The same file again: refused (409), shown as an error naming the earlier upload, never as a success.
+    await page.getByLabel("Collector", { exact: true }).fill("pop-a-archive");
+    await page.getByLabel("File", { exact: true }).setInputFiles(path);
+    await page.getByRole("button", { name: "Upload" }).click();
+    const alert = page.getByRole("alert").filter({ hasText: "this file was imported already" });
+    await alert.waitFor({ timeout: 30_000 });
+    expect(await alert.innerText()).toMatch(/imported already: into pop-a-archive at .+Z by eli-engineer/);
+    expect(await page.getByText(/Imported into collector/).count()).toBe(0);
+    // The refused request itself is the only error the page may log (its 409, and the browser's note of it).
+    expect(errors.filter((e) => !/\b409\b/.test(e)), errors.join("\n")).toEqual([]);
     await context.close();
   });
 

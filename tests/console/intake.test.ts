@@ -154,14 +154,17 @@ describe("Intake: ingest health per collector", () => {
     const range = `from=${open - 3 * WINDOW_MS}&to=${open + WINDOW_MS}&collectors=edge-1`;
     const file = await fetch(`${t.url}/api/v1/samples?${range}`, { headers: { authorization: `Bearer ${riverlineKey}` } });
     expect(file.status).toBe(200);
+    // A key imports only into its own collector: an ingest key of archive.
+    const riverlineId = Number((await t.server.db.$client.execute("SELECT id FROM tenants WHERE slug = 'riverline'")).rows[0][0]);
+    const archiveKey = (await keyFor(t.server, riverlineId, "archive", "ingest")).key;
     const imported = await fetch(`${t.url}/api/v1/samples?collector=archive`, {
       method: "POST",
-      headers: { authorization: `Bearer ${riverlineKey}`, "content-type": "application/json" },
+      headers: { authorization: `Bearer ${archiveKey}`, "content-type": "application/json" },
       body: await file.text(),
     });
     expect(imported.status).toBe(200);
     const s = await snapshot();
-    expect(s.collectors.find((c) => c.name === "archive")).toMatchObject({ lastSeenAt: null, importsOnly: true, quiet: false, recordsLastMinute: 0 });
+    expect(s.collectors.find((c) => c.name === "archive")).toMatchObject({ lastSeenAt: null, importsOnly: true, quiet: false, recordsLastMinute: 0, copyOf: ["edge-1"] });
     expect(s.collectors.find((c) => c.name === "edge-2")).toMatchObject({ lastSeenAt: null, importsOnly: false, quiet: true });
   });
 

@@ -106,8 +106,9 @@ describe("export, import elsewhere, merge = the union stream's sample", () => {
 
     const files = [await exportFile(source.url, a.key, "north"), await exportFile(source.url, a.key, "south")];
     const office = await tenantWithKey(target.server, "office", { collector: "intake", sampleSize: 256 });
-    await importFile(target.url, office.key, "north-copy", files[0]);
-    await importFile(target.url, office.key, "south-copy", files[1]);
+    // A key imports only into its own collector: one ingest key per copy.
+    await importFile(target.url, (await keyFor(target.server, office.tenant.id, "north-copy", "ingest")).key, "north-copy", files[0]);
+    await importFile(target.url, (await keyFor(target.server, office.tenant.id, "south-copy", "ingest")).key, "south-copy", files[1]);
     const merged = await mergedWindows(target.url, office.key, ["north-copy", "south-copy"]);
 
     expect(merged.map((w) => w.windowStart)).toEqual([0, 1, 2].map((i) => T0 + i * WINDOW_MS));
@@ -139,8 +140,8 @@ describe("export, import elsewhere, merge = the union stream's sample", () => {
     const files = [await exportFile(source.url, a.key, "north"), await exportFile(source.url, a.key, "south")];
     const office = await tenantWithKey(target.server, "office-coordinated", { collector: "intake", sampleSize: 256 });
     await target.server.db.update(tenants).set({ coordinated: true, coordinationSecret: randomBytes(16).toString("hex") }).where(eq(tenants.id, office.tenant.id));
-    await importFile(target.url, office.key, "north-copy", files[0]);
-    await importFile(target.url, office.key, "south-copy", files[1]);
+    await importFile(target.url, (await keyFor(target.server, office.tenant.id, "north-copy", "ingest")).key, "north-copy", files[0]);
+    await importFile(target.url, (await keyFor(target.server, office.tenant.id, "south-copy", "ingest")).key, "south-copy", files[1]);
     const merged = await mergedWindows(target.url, office.key, ["north-copy", "south-copy"]);
 
     for (const window of merged) {
