@@ -152,7 +152,8 @@ function fromText(text: string): number | string {
 
 /** A converter of a time in whole `unit`s since the epoch, or RFC 3339 text, to epoch ms (truncated). */
 function timeIn(unit: "seconds" | "milliseconds" | "microseconds" | "nanoseconds"): Convert<number> {
-  const scale = unit === "seconds" ? 1000 : unit === "milliseconds" ? 1 : unit === "microseconds" ? 1 / 1000 : 1 / 1_000_000;
+  // Whole units to ms, as the fast path computes them (a division, not a multiplication by 0.001: floor needs the rounded quotient).
+  const toMs = unit === "seconds" ? (v: number) => v * 1000 : unit === "milliseconds" ? (v: number) => v : unit === "microseconds" ? (v: number) => Math.floor(v / 1000) : (v: number) => Math.floor(v / 1e6);
   const whole = `must be epoch ${unit} as a non-negative whole number, or ${RFC3339_FORM}`;
   return (value: number | string) => {
     if (typeof value === "string") {
@@ -167,7 +168,7 @@ function timeIn(unit: "seconds" | "milliseconds" | "microseconds" | "nanoseconds
     // value sent: close enough for the milliseconds Weir keeps, so any whole number is taken.
     const exact = unit === "nanoseconds" ? Number.isInteger(value) : Number.isSafeInteger(value);
     if (!exact || value < 0) return whole;
-    return inTimeRange(Math.floor(value * scale));
+    return inTimeRange(toMs(value));
   };
 }
 
