@@ -372,7 +372,9 @@ export function scan(reservoirs: readonly ScanReservoir[], q: CompiledQuery): Sc
   const byReservoirKey = new Map<string | number, number>();
   const values: (string | number)[] = [];
   const { checks, groupMask4: g4, groupMask6: g6 } = q;
-  let sel = new Int32Array(0);
+  // Indexes of the records that pass the checks so far; without checks, every index (identity).
+  let identity = new Int32Array(0);
+  let selected = new Int32Array(0);
 
   for (const r of reservoirs) {
     if (r.windowStart < q.from || r.windowStart >= q.to) continue;
@@ -382,11 +384,18 @@ export function scan(reservoirs: readonly ScanReservoir[], q: CompiledQuery): Sc
     if (n === 0) continue;
     const tau = r.tau;
     const addressWords = { src: wordsOf(c.src, n), dst: wordsOf(c.dst, n) };
-    if (sel.length < n) sel = new Int32Array(n);
-    for (let i = 0; i < n; i++) sel[i] = i;
+    if (identity.length < n) {
+      identity = Int32Array.from({ length: n }, (_, i) => i);
+      selected = new Int32Array(n);
+    }
+    let sel = identity;
     let m = n;
-    for (let k = 0; k < checks.length && m > 0; k++) m = narrow(checks[k], c, addressWords, sel, m);
-    if (m === 0) continue;
+    if (checks.length > 0) {
+      sel = selected;
+      sel.set(identity.subarray(0, n));
+      for (let k = 0; k < checks.length && m > 0; k++) m = narrow(checks[k], c, addressWords, sel, m);
+      if (m === 0) continue;
+    }
 
     const x = q.metric === "bytes" ? c.bytes : q.metric === "packets" ? c.packets : null;
     const groupWords = column === "src" || column === "dst" ? addressWords[column] : null;
