@@ -1,4 +1,6 @@
+import jStat from "jstat";
 import { describe, expect, it } from "vitest";
+import { gammaInterval, toInterval } from "~/sampling/interval";
 import { coveredSeconds, nearestRank, percentileNearestRank, percentileOfWindows, rateJson, type WindowSum } from "~/query/rate";
 import { addRecord, EMPTY_SUM, type EstimateSum } from "~/sampling/estimate";
 import { Reservoir } from "~/sampling/reservoir";
@@ -85,6 +87,36 @@ describe("the 95th percentile by nearest rank", () => {
     expect(p.window).toBe(new Date(300_000).toISOString());
     expect(p.ci95).toEqual([(9000 * 8) / 300, (9000 * 8) / 300]);
     expect(percentileOfWindows([], "bytes")).toBeNull();
+  });
+});
+
+describe("each window's interval at level 1 − alpha (what the p95 interval is built from)", () => {
+  it("normal: estimate ± Φ⁻¹(1 − alpha/2)·SE, the quantile from jstat (npm jstat)", () => {
+    const sum = { estimate: 1000, variance: 2500, certain: 0, kept: 40, uncertain: 40, maxTerm: 10 };
+    const alpha = 0.05 / 40;
+    const z = jStat.normal.inv(1 - alpha / 2, 0, 1);
+    const [low, high] = toInterval(sum, { unseenTerm: 10 }, alpha).ci95;
+    expect(low).toBeCloseTo(1000 - z * 50, 6);
+    expect(high).toBeCloseTo(1000 + z * 50, 6);
+    // The default stays the 95% interval.
+    expect(toInterval(sum, { unseenTerm: 10 }).ci95[1]).toBeCloseTo(1000 + 1.959963984540054 * 50, 9);
+  });
+
+  it("gamma with equal terms: Garwood's exact Poisson limits at that level (Garwood, Biometrika 28, 1936; gamma quantiles from jstat)", () => {
+    // 3 events at 99%: Garwood's limits G⁻¹(0.005; 3) and G⁻¹(0.995; 4), about 0.338 and 10.98
+    // (published Poisson confidence-limit tables; recalled from memory, and checked against jstat).
+    const [low, high] = gammaInterval(3, 3, 1, 0.01);
+    expect(low).toBeCloseTo(jStat.gamma.inv(0.005, 3, 1), 9);
+    expect(high).toBeCloseTo(jStat.gamma.inv(0.995, 4, 1), 9);
+    expect(low).toBeCloseTo(0.338, 3);
+    expect(high).toBeCloseTo(10.98, 2);
+  });
+
+  it("no match: [0, −ln(alpha/2)·unseenTerm], Garwood's upper limit for a count of 0 at that level", () => {
+    const alpha = 0.05 / 288;
+    const iv = toInterval({ estimate: 0, variance: 0, certain: 0, kept: 0, uncertain: 0, maxTerm: 0 }, { unseenTerm: 1000 }, alpha);
+    expect(iv.ci95[0]).toBe(0);
+    expect(iv.ci95[1]).toBeCloseTo(1000 * jStat.gamma.inv(1 - alpha / 2, 1, 1), 6);
   });
 });
 
