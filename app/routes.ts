@@ -33,6 +33,8 @@ export default [
     route("merge", "routes/console.merge.tsx"),
     // Sample-file uploads from the Merge page (a resource route: multipart in, JSON out).
     route("merge/upload", "routes/console.merge-upload.ts"),
+    // Sample-file downloads from the Merge page (a resource route: a query in, the file out).
+    route("merge/export", "routes/console.merge-export.ts"),
     route("keys", "routes/console.keys.tsx"),
     route("settings", "routes/console.settings.tsx"),
     route("people", "routes/console.people.tsx"),

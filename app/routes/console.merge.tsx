@@ -3,6 +3,7 @@ import { ApiError } from "~/auth/api-keys.server";
 import { requireMember } from "~/auth/guards.server";
 import { MergeList } from "~/components/merge/MergeList";
 import { MergeSummary } from "~/components/merge/MergeSummary";
+import { SampleExport } from "~/components/merge/SampleExport";
 import { SampleUpload } from "~/components/merge/SampleUpload";
 import { Button, Cautions, EmptyState, ErrorState, Field, inputClass, PageHeader, Panel } from "~/components/ui";
 import { mergeAnswer, type MergeAnswer } from "~/merges/answer";
@@ -10,6 +11,7 @@ import { copiesAndMerges } from "~/query/collector-kinds.server";
 import { createMerge, deleteMerge, listMerges, refuseTakenName, streamCollectorNames, type MergeActor } from "~/merges/merges.server";
 import { planMerge } from "~/merges/plan.server";
 import { parseMergeRequest, type MergeIssue } from "~/merges/request.server";
+import { formatUtcMinute, parseUtcMinute, UTC_MINUTE_PATTERN } from "~/slice/format";
 import { collectorNameSchema } from "~/tenants.server";
 import type { Route } from "./+types/console.merge";
 
@@ -34,7 +36,8 @@ export async function loader({ request, context, params }: Route.LoaderArgs) {
     streams,
     copies,
     merges,
-    defaults: { from: toInput(to - 24 * HOUR_MS), to: toInput(to) },
+    defaults: { from: formatUtcMinute(to - 24 * HOUR_MS), to: formatUtcMinute(to) },
+    range: { from: to - 24 * HOUR_MS, to },
     maxBytes: context.env.SAMPLES_MAX_BODY_BYTES,
   };
 }
@@ -117,17 +120,14 @@ function fieldErrors(details: MergeIssue[]): FieldErrors {
   return out;
 }
 
-/** `YYYY-MM-DDTHH:MM` as the datetime-local input gives it carries no zone: Weir reads it as UTC. */
+/** The form's `YYYY-MM-DD HH:MM` (24-hour UTC, the console's time form) as ISO 8601; other text goes to the request's own reader as typed. */
 function fromUtcInput(text: string): string {
-  return /^\d{4}-\d{2}-\d{2}T\d{2}:\d{2}(:\d{2})?$/.test(text) ? `${text}${text.length === 16 ? ":00" : ""}Z` : text;
-}
-
-function toInput(ms: number): string {
-  return new Date(ms).toISOString().slice(0, 16);
+  const ms = parseUtcMinute(text);
+  return ms === null ? text : new Date(ms).toISOString();
 }
 
 export default function Merge({ loaderData, actionData }: Route.ComponentProps) {
-  const { tenant, streams, copies, merges, defaults, maxBytes } = loaderData;
+  const { tenant, streams, copies, merges, defaults, range, maxBytes } = loaderData;
   const outcome = actionData?.intent === "preview" || actionData?.intent === "create" ? actionData : undefined;
   const created = outcome?.ok && outcome.intent === "create" ? outcome.answer : undefined;
   return (
@@ -137,7 +137,7 @@ export default function Merge({ loaderData, actionData }: Route.ComponentProps) 
         lead={
           <>
             Merge the samples of several of {tenant.name}'s collectors, window by window, into one merged collector that Slice and the estimate API answer from
-            by its name. Upload a sample file exported elsewhere below.
+            by its name. Export a sample file of any range, or upload one exported elsewhere, below.
           </>
         }
       />
@@ -185,6 +185,8 @@ export default function Merge({ loaderData, actionData }: Route.ComponentProps) 
             <MergeList tenantSlug={tenant.slug} merges={merges} />
           )}
         </Panel>
+
+        <SampleExport tenantSlug={tenant.slug} collectors={streams} copies={copies} merges={merges.map((m) => m.name)} defaults={range} />
 
         <SampleUpload tenantSlug={tenant.slug} collectors={streams} maxBytes={maxBytes} />
       </div>
@@ -254,11 +256,12 @@ function MergeForm({
         )}
       </fieldset>
       <div className="grid gap-4 md:grid-cols-2 lg:grid-cols-4">
-        <Field label="From (UTC)" htmlFor="merge-from" error={errors.from ? `From ${errors.from}.` : undefined} hint="Windows starting at or after this time.">
-          <input id="merge-from" name="from" type="datetime-local" defaultValue={values?.from ?? defaults.from} className={`${inputClass} font-mono`} />
+        {/* Text in the console's one time form, not the browser's date-time input, which follows its locale (a 12-hour clock in some). */}
+        <Field label="From (UTC)" htmlFor="merge-from" error={errors.from ? `From ${errors.from}.` : undefined} hint="24-hour, YYYY-MM-DD HH:MM; windows starting at or after this time.">
+          <input id="merge-from" name="from" type="text" inputMode="numeric" pattern={UTC_MINUTE_PATTERN} placeholder="YYYY-MM-DD HH:MM" autoComplete="off" defaultValue={values?.from ?? defaults.from} className={`${inputClass} font-mono placeholder:font-sans placeholder:italic`} />
         </Field>
-        <Field label="To (UTC)" htmlFor="merge-to" error={errors.to ? `To ${errors.to}.` : undefined} hint="Windows starting before this time; at most 400 days.">
-          <input id="merge-to" name="to" type="datetime-local" defaultValue={values?.to ?? defaults.to} className={`${inputClass} font-mono`} />
+        <Field label="To (UTC)" htmlFor="merge-to" error={errors.to ? `To ${errors.to}.` : undefined} hint="24-hour; windows starting before this time; at most 400 days.">
+          <input id="merge-to" name="to" type="text" inputMode="numeric" pattern={UTC_MINUTE_PATTERN} placeholder="YYYY-MM-DD HH:MM" autoComplete="off" defaultValue={values?.to ?? defaults.to} className={`${inputClass} font-mono placeholder:font-sans placeholder:italic`} />
         </Field>
         <Field
           label="Sample size k"

@@ -1,5 +1,5 @@
 import { execFile } from "node:child_process";
-import { writeFileSync } from "node:fs";
+import { readFileSync, writeFileSync } from "node:fs";
 import { join } from "node:path";
 import { fileURLToPath } from "node:url";
 import { promisify } from "node:util";
@@ -7,6 +7,7 @@ import { afterAll, beforeAll, describe, expect, it, vi } from "vitest";
 import { ensureUserByEmail, setMembership } from "~/auth/users.server";
 import { flowRecordToJson } from "~/flow/record";
 import { windowStartOf } from "~/ingest/window";
+import { parseSampleFile } from "~/samples/document";
 import { benchRecords } from "../../scripts/bench/data";
 import { launchBrowser, signInWithBrowser, type TestBrowser } from "../helpers/browser";
 import { keyFor, postFlows, startTestServer, tenantWithKey, type TestServer } from "../helpers/server";
@@ -49,8 +50,10 @@ describe("the Merge page in a browser", () => {
   it("previews a merge with τ and kept counts per window, then stores it and lists its provenance", async () => {
     const { context, page, errors } = await signInWithBrowser(b.browser, t.url, "eli-engineer");
     await page.goto("/t/riverline/merge");
-    await page.getByRole("checkbox", { name: "pop-a" }).check();
-    await page.getByRole("checkbox", { name: "pop-b" }).check();
+    // The merge form's boxes (the export panel lists the same collectors).
+    const form = page.locator("form").filter({ has: page.getByRole("button", { name: "Preview" }) });
+    await form.getByRole("checkbox", { name: "pop-a" }).check();
+    await form.getByRole("checkbox", { name: "pop-b" }).check();
     const local = (ms: number) => new Date(ms).toISOString().slice(0, 16);
     await page.getByLabel("From (UTC)").fill(local(from));
     await page.getByLabel("To (UTC)").fill(local(to));
@@ -76,6 +79,31 @@ describe("the Merge page in a browser", () => {
     // The list of merges comes from the page's loader, which reloads after the action.
     await vi.waitFor(async () => expect(await page.locator("main").innerText()).toMatch(/eli-engineer/), { timeout: 30_000, interval: 100 });
     expect(await page.locator("main").innerText()).toMatch(/pop-a,\s*pop-b/);
+    expect(errors, errors.join("\n")).toEqual([]);
+    await context.close();
+  });
+
+  it("exports a sample file for a range and collectors: the download equals the API's export", async () => {
+    const { context, page, errors } = await signInWithBrowser(b.browser, t.url, "eli-engineer");
+    await page.goto("/t/riverline/merge");
+    const panel = page.locator("section").filter({ has: page.getByRole("heading", { name: "Export a sample file" }) });
+    await panel.getByRole("checkbox", { name: "pop-a" }).check();
+    // 24-hour UTC text, the console's one time form.
+    const minute = (ms: number) => new Date(ms).toISOString().slice(0, 16).replace("T", " ");
+    await panel.getByLabel("Export from (UTC, 24 h)").fill(minute(from));
+    await panel.getByLabel("Export to (UTC, 24 h)").fill(minute(to));
+    const download = page.waitForEvent("download");
+    await panel.getByRole("button", { name: "Download sample file" }).click();
+    const saved = await download;
+    expect(saved.suggestedFilename()).toMatch(/^weir-samples-riverline-\d{8}T\d{4}Z-\d{8}T\d{4}Z\.json$/);
+    const file = JSON.parse(readFileSync(await saved.path(), "utf8")) as Record<string, unknown>;
+    // The sample-file parser reads it, and it is the API's export of the same range (docs/sample-file.md), all but its export time.
+    expect(parseSampleFile(file).windows.map((w) => w.collector)).toEqual(Array(6).fill("pop-a"));
+    const api = await fetch(`${t.url}/api/v1/samples?from=${from}&to=${to}&collectors=pop-a`, { headers: { authorization: `Bearer ${key}` } });
+    const { exportedAt: _a, ...fromApi } = (await api.json()) as Record<string, unknown>;
+    const { exportedAt: _b, ...fromPage } = file;
+    expect(fromPage).toEqual(fromApi);
+    await panel.getByText(/^Saved weir-samples-riverline-/).waitFor();
     expect(errors, errors.join("\n")).toEqual([]);
     await context.close();
   });

@@ -26,6 +26,8 @@ const PAGES: [path: string, least: Role][] = [
   ["/t/matrix/exporters-data", "viewer"],
   ["/t/matrix/calibration", "viewer"],
   ["/t/matrix/merge", "engineer"],
+  // A sample file holds kept flow records whole: engineers and admins, as uploads (a range around the test's one record).
+  [`/t/matrix/merge/export?from=${encodeURIComponent(new Date(Date.now() - 86_400_000).toISOString())}&to=${encodeURIComponent(new Date(Date.now() + 3_600_000).toISOString())}`, "engineer"],
   ["/t/matrix/keys", "admin"],
   ["/t/matrix/people", "admin"],
   ["/t/matrix/ledger", "admin"],
