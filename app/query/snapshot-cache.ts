@@ -1,8 +1,8 @@
 import type { KeptColumns } from "./columns.ts";
 
 /**
- * Kept records at about 70 bytes each (addresses, counters, ports in columns): 2 million
- * is some 140 MB, a week of 5-minute windows for one collector at k = 1024.
+ * Kept records at about 86 bytes each (addresses, counters, ports, AS numbers and interfaces
+ * in columns): 2 million is some 170 MB, a week of 5-minute windows for one collector at k = 1024.
  */
 export const SNAPSHOT_CACHE_MAX_RECORDS = 2_000_000;
 
