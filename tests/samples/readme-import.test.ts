@@ -1,4 +1,11 @@
+import { createElement } from "react";
+import { renderToStaticMarkup } from "react-dom/server";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
+import { Headline } from "~/components/slice/Results";
+import { SliceForm } from "~/components/slice/SliceForm";
+import { collectorChoices } from "~/merges/merges.server";
+import type { EstimateAnswer } from "~/query/answer";
+import { defaultSliceState } from "~/slice/query-state";
 import { flowRecordToJson } from "~/flow/record";
 import { windowStartOf } from "~/ingest/window";
 import { seededUniform } from "~/sampling/uniform";
@@ -25,6 +32,8 @@ function close(actual: number, expected: number, what: string): void {
   expect(Math.abs(actual - expected), `${what}: ${actual} against ${expected}`).toBeLessThanOrEqual(1e-12 * Math.abs(expected));
 }
 
+const html = (element: Parameters<typeof renderToStaticMarkup>[0]) => renderToStaticMarkup(element).replace(/&#x27;/g, "'");
+
 interface Answer {
   estimate: number;
   ci95: [number, number];
@@ -40,6 +49,7 @@ describe("the README's export/import example, then questions with no collector p
   let queryKey = "";
   let archiveKey = "";
   let archive2Key = "";
+  let tenantId = 0;
   // The README's times: whole hours, [3 hours ago, 1 hour ago) for the export; six hours of traffic.
   const hour = Math.floor(Date.now() / HOUR_MS) * HOUR_MS;
   const from = hour - 6 * HOUR_MS;
@@ -77,6 +87,7 @@ describe("the README's export/import example, then questions with no collector p
     t = await startTestServer({ uniform: seededUniform(5) });
     const north = await tenantWithKey(t.server, "riverline", { collector: "pop-north", scope: "both", sampleSize: 16 });
     queryKey = north.key;
+    tenantId = north.tenant.id;
     const south = await keyFor(t.server, north.tenant.id, "pop-south", "ingest");
     // The demo's third key: ingest only, for north-archive (scripts/demo-keys.ts).
     archiveKey = (await keyFor(t.server, north.tenant.id, "north-archive", "ingest")).key;
@@ -180,6 +191,21 @@ describe("the README's export/import example, then questions with no collector p
     expect((await refused.json()).error).toMatchObject({ code: "copy_with_origin", message: expect.stringMatching(/north-archive \(copy of pop-north\)/) });
     const asked = await merge(true);
     expect(asked.status, await asked.clone().text()).toBe(201);
+  });
+
+  it("Slice shows the rule under the headline, copies apart in the picker, and the pair refused when both are picked", async () => {
+    const { answer } = await estimate(QUESTIONS[0]);
+    const headline = html(createElement(Headline, { answer: answer as unknown as EstimateAnswer, tenant: "riverline", state: defaultSliceState(), updating: false, windowSeconds: 300 }));
+    expect(headline).toContain("data-collector-rule");
+    expect(headline).toMatch(/left out: north-archive \(copy of pop-north\)/);
+
+    const collectors = await collectorChoices(t.server.db, tenantId);
+    expect(collectors.find((c) => c.name === "north-archive")).toEqual({ name: "north-archive", kind: "copy", inputs: ["pop-north"] });
+    const state = { ...defaultSliceState(), lists: { ...defaultSliceState().lists, collectors: ["pop-north", "north-archive"] } };
+    const form = html(createElement(SliceForm, { state, onChange: () => {}, collectors, weightAttribute: "bytes" }));
+    expect(form).toContain("Copies (imported sample files)");
+    expect(form).toContain("copy of pop-north");
+    expect(form).toMatch(/role="alert"[^>]*>north-archive \(copy of pop-north\) holds a sample of pop-north's records, so naming both counts them twice: pick one of them\./);
   });
 
   it("exports copies only when named, like merges", async () => {
