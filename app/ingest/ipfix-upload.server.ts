@@ -4,7 +4,7 @@ import type { Db } from "~/db/client.server";
 import type { Tenant } from "~/db/schema.server";
 import { ensureCollector } from "~/tenants.server";
 import type { IpfixFileSummary } from "./ipfix-body";
-import type { FlowBodyParser } from "./body.server";
+import { invalidRecords, type FlowBodyParser, type RecordProblem } from "./body.server";
 import type { ReservoirManager } from "./manager.server";
 
 /** Most flow records one uploaded IPFIX file may hold (a larger capture is split, or sent to the listeners). */
@@ -49,19 +49,29 @@ export async function ingestIpfixUpload(
   });
   if (!outcome.ok) throw new ApiError(outcome.status, outcome.code, outcome.message, outcome.extra);
   const ipfix = outcome.ipfix!;
-  const answer = await ctx.manager.ingest({
-    tenant: {
-      id: tenant.id,
-      sampleSize: tenant.sampleSize,
-      windowSeconds: tenant.windowSeconds,
-      weightAttribute: tenant.weightAttribute,
-      coordinationKey: coordinationKeyOf(tenant),
-    },
-    collector,
-    records: outcome.packed,
-    receivedAt: Date.now(),
-    source: "ipfix-file",
-  });
+  const answer = await ctx.manager
+    .ingest({
+      tenant: {
+        id: tenant.id,
+        sampleSize: tenant.sampleSize,
+        windowSeconds: tenant.windowSeconds,
+        weightAttribute: tenant.weightAttribute,
+        coordinationKey: coordinationKeyOf(tenant),
+        retentionDays: tenant.retentionDays,
+        hourlyRetentionDays: tenant.hourlyRetentionDays,
+      },
+      collector,
+      records: outcome.packed,
+      // The manager's clock: flow times are checked against it.
+      receivedAt: ctx.manager.now(),
+      source: "ipfix-file",
+    })
+    .catch((error: unknown) => {
+      // Records refused for their times (app/ingest/time-check.ts), matched by code: the error comes from the server's modules.
+      const refused = error as { code?: unknown; details?: RecordProblem[]; invalidCount?: number };
+      if (refused?.code === "weir_times_refused") throw invalidRecords(refused.details ?? [], refused.invalidCount ?? 0);
+      throw error;
+    });
   await recordAudit(ctx.db, {
     tenantId: tenant.id,
     actor,

@@ -2,9 +2,12 @@
 // assertions. Flow times are epoch milliseconds (RFC 7011 §6.1.8 dateTimeMilliseconds: since the
 // Unix epoch); a start sent in epoch seconds, a common exporter mistake, lands in January 1970.
 import { afterAll, beforeAll, describe, expect, test } from "vitest";
+import { ensureUserByEmail, setMembership } from "~/auth/users.server";
 import { packFlowRecords } from "~/ingest/kept-codec";
 import { parseAddress } from "~/net/address";
+import { ipfixMessages, testFlows } from "../collect/helpers";
 import { postFlows, startTestServer, tenantWithKey, type TestServer } from "../helpers/server";
+import { signIn } from "../helpers/session";
 
 const NOW = Date.UTC(2024, 4, 1, 2, 10, 0); // the server clock: 02:10, so the open 5-minute window is 02:10–02:15
 const DAY_MS = 86_400_000;
@@ -98,6 +101,41 @@ describe("times on POST /api/v1/flows", () => {
     expect(error.invalidCount).toBe(150);
     expect(error.details).toHaveLength(100);
     expect((await counters(collector.id)).refused).toBe(150);
+  });
+});
+
+describe("times in IPFIX files (RFC 5655)", () => {
+  const file = (startMs: number) => {
+    const parts = ipfixMessages(testFlows(20, 7, startMs), 5);
+    const out = new Uint8Array(parts.reduce((n, p) => n + p.byteLength, 0));
+    parts.reduce((at, p) => (out.set(p, at), at + p.byteLength), 0);
+    return out;
+  };
+
+  test("posted to the API: a file dated a day ahead is refused whole, one dated now is stored", async () => {
+    const { tenant, key } = await tenantWithKey(t.server, "ipfix-file", { sampleSize: 1024 });
+    const ahead = await postFlows(t.url, key, file(NOW + DAY_MS), { "content-type": "application/ipfix" });
+    expect(ahead.status).toBe(400);
+    const { error } = await ahead.json();
+    expect(error).toMatchObject({ code: "invalid_records", invalidCount: 20 });
+    expect(error.details[0].message).toContain("ahead of the server clock");
+    expect(await storedRecords(tenant.id)).toBe(0);
+    const now = await postFlows(t.url, key, file(NOW - 60_000), { "content-type": "application/ipfix" });
+    expect(now.status).toBe(200);
+    expect(await storedRecords(tenant.id)).toBe(20);
+  });
+
+  test("uploaded on the Merge page: the same 400, not a 500", async () => {
+    const { tenant } = await tenantWithKey(t.server, "riverline", { sampleSize: 1024 });
+    await setMembership(t.server.db, (await ensureUserByEmail(t.server.db, "eli@example.com")).id, tenant.id, "engineer");
+    const eli = await signIn(t.url, "eli-engineer");
+    const body = new FormData();
+    body.set("collector", "site-c");
+    body.set("file", new Blob([file(NOW + DAY_MS)], { type: "application/ipfix" }), "ahead.ipfix");
+    const res = await eli.fetch("/t/riverline/merge/upload", { method: "POST", body });
+    expect(res.status).toBe(400);
+    expect((await res.json()).error).toMatchObject({ code: "invalid_records", invalidCount: 20 });
+    expect(await storedRecords(tenant.id)).toBe(0);
   });
 });
 
