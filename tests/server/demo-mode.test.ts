@@ -7,9 +7,9 @@ import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { fileURLToPath } from "node:url";
 import { promisify } from "node:util";
-import { describe, expect, it } from "vitest";
+import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { EnvError, parseEnv } from "~/env.server";
-import { startServer } from "~/server/app.server";
+import { startServer, type WeirServer } from "~/server/app.server";
 
 const ROOT = fileURLToPath(new URL("../..", import.meta.url));
 const REAL_GITHUB = { GITHUB_CLIENT_ID: "Iv1.0123456789abcdef", GITHUB_CLIENT_SECRET: "0".repeat(40) };
@@ -83,4 +83,41 @@ describe("demo mode at start", () => {
       rmSync(dir, { recursive: true, force: true });
     }
   }, 120_000);
+});
+
+describe("demo mode on a production build", () => {
+  let dir: string;
+  let server: WeirServer;
+
+  beforeAll(async () => {
+    await promisify(execFile)(process.execPath, [join(ROOT, "node_modules/@react-router/dev/bin.js"), "build"], { cwd: ROOT, timeout: 240_000 });
+    dir = mkdtempSync(join(tmpdir(), "weir-demo-production-"));
+    server = await startServer({
+      env: parseEnv({ NODE_ENV: "production", WEIR_DEMO: "1", HOST: "127.0.0.1", PORT: "0", LOG_LEVEL: "silent", DATABASE_URL: `file:${join(dir, "weir.db")}`, RETENTION_INTERVAL_MINUTES: "0", CALIBRATION_INTERVAL_MINUTES: "0" }),
+      collect: { ipfixUdpPort: null, netflowUdpPort: null, ipfixTcpPort: null },
+    });
+  }, 300_000);
+
+  afterAll(async () => {
+    await server?.close();
+    if (dir) rmSync(dir, { recursive: true, force: true });
+  });
+
+  it("signs in through the local fake GitHub with a session cookie the browser keeps over plain http, and shows caught mail", async () => {
+    expect(server.github.fake).toBe(true);
+    const start = await fetch(`${server.url}/auth/github`, {
+      method: "POST",
+      redirect: "manual",
+      headers: { "content-type": "application/x-www-form-urlencoded" },
+      body: new URLSearchParams({ returnTo: "/console" }),
+    });
+    expect(start.status).toBe(302);
+    // The authorization request goes to the fake on this machine, never to github.com (RFC 6749 §4.1.1).
+    expect(new URL(start.headers.get("location")!).hostname).toBe("127.0.0.1");
+    // A cookie with the Secure attribute is not sent over http (RFC 6265 §4.1.2.5): the demo serves plain http.
+    const cookies = start.headers.getSetCookie();
+    expect(cookies.length).toBeGreaterThan(0);
+    for (const cookie of cookies) expect(cookie).not.toMatch(/;\s*secure/i);
+    expect((await fetch(`${server.url}/dev/mail`)).status).toBe(200);
+  });
 });
