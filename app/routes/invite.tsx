@@ -1,7 +1,7 @@
 import type { ReactNode } from "react";
 import { data, Form, Link, redirect, useActionData, useLoaderData, useNavigation } from "react-router";
 import { recordAudit } from "~/audit.server";
-import { requireUser } from "~/auth/guards.server";
+import { optionalUser, requireUser } from "~/auth/guards.server";
 import { membershipBySlug, roleAtLeast } from "~/auth/users.server";
 import { Button } from "~/components/ui";
 import type { Role } from "~/db/schema.server";
@@ -13,7 +13,7 @@ import type { Route } from "./+types/invite";
 export { ErrorBoundary } from "~/components/ErrorPanel";
 
 export const meta: Route.MetaFunction = ({ data }) => [
-  { title: data && data.state === "valid" ? `Join ${data.tenant.name} · Weir` : "Invitation · Weir" },
+  { title: data && (data.state === "valid" || data.state === "sign-in") ? `Join ${data.tenant.name} · Weir` : "Invitation · Weir" },
   // The token is a secret in the URL: keep it out of Referer headers sent to other sites.
   { name: "referrer", content: "no-referrer" },
 ];
@@ -22,6 +22,10 @@ type Unusable = Exclude<InviteState, "valid"> | "unknown";
 
 type InvitePage =
   | { state: "unknown"; signedInAs: string }
+  /** Signed out, a valid invitation: who invites whom to which tenant as what, before signing in. */
+  | { state: "sign-in"; email: string; role: Role; tenant: { name: string }; invitedBy: string | null; expiresAt: number; returnTo: string }
+  /** Signed out, a link that cannot be used (never was, expired, used, withdrawn): one answer for all, so the link tells nothing. */
+  | { state: "unusable" }
   | {
       state: InviteState;
       signedInAs: string;
@@ -43,7 +47,8 @@ type InvitePage =
 const statusOf = (state: InviteState | "unknown") => (state === "valid" ? 200 : state === "unknown" ? 404 : 410);
 
 export async function loader({ request, context, params }: Route.LoaderArgs) {
-  const user = await requireUser(request, context);
+  const user = await optionalUser(request, context);
+  if (!user) return signedOut(context, params.token);
   const signedInAs = memberLabel(user) === user.email ? user.email : `${memberLabel(user)} (${user.email})`;
   const token = inviteTokenSchema.safeParse(params.token);
   const invite = token.success ? await findInvite(context.db, token.data) : undefined;
@@ -68,6 +73,27 @@ export async function loader({ request, context, params }: Route.LoaderArgs) {
   );
 }
 
+/**
+ * The page for someone not signed in yet. A usable invitation says who invited which e-mail
+ * address to which tenant with which role, then offers the sign-in that comes back here. Any
+ * other link gets the same 404 whatever the reason, naming no tenant or person, since the
+ * holder of a dead link has no claim to learn what it was.
+ */
+async function signedOut(context: Route.LoaderArgs["context"], rawToken: string) {
+  const token = inviteTokenSchema.safeParse(rawToken);
+  const invite = token.success ? await findInvite(context.db, token.data) : undefined;
+  if (!invite || invite.state !== "valid") return data<InvitePage>({ state: "unusable" }, { status: 404 });
+  return data<InvitePage>({
+    state: "sign-in",
+    email: invite.email,
+    role: invite.role,
+    tenant: { name: invite.tenant.name },
+    invitedBy: invite.invitedBy,
+    expiresAt: invite.expiresAt,
+    returnTo: `/invite/${token.data}`,
+  });
+}
+
 export async function action({ request, context, params }: Route.ActionArgs) {
   const user = await requireUser(request, context);
   const token = inviteTokenSchema.safeParse(params.token);
@@ -90,6 +116,15 @@ export default function Invite() {
   const navigation = useNavigation();
   const accepting = navigation.state !== "idle" && navigation.formMethod === "POST";
 
+  if (page.state === "sign-in" || page.state === "unusable") {
+    return (
+      <main className="mx-auto flex min-h-screen max-w-xl flex-col justify-center px-6 py-16">
+        <p className="font-mono text-sm tracking-widest text-sand-300">WEIR · INVITATION</p>
+        {page.state === "sign-in" ? <SignInFirst page={page} /> : <Unusable />}
+      </main>
+    );
+  }
+
   return (
     <main className="mx-auto flex min-h-screen max-w-xl flex-col justify-center px-6 py-16">
       <p className="font-mono text-sm tracking-widest text-sand-300">WEIR · INVITATION</p>
@@ -108,7 +143,40 @@ export default function Invite() {
   );
 }
 
-type Known = Exclude<InvitePage, { state: "unknown" }>;
+type Known = Extract<InvitePage, { state: InviteState }>;
+
+function SignInFirst({ page }: { page: Extract<InvitePage, { state: "sign-in" }> }) {
+  return (
+    <>
+      <h1 className="mt-2 text-3xl font-semibold text-river-50">
+        Join {page.tenant.name} as {withArticle(page.role)}
+      </h1>
+      <p className="mt-4 text-river-200">
+        {page.invitedBy ?? "An admin"} invited <span className="font-mono text-river-100">{page.email}</span> to the tenant {page.tenant.name} on Weir.{" "}
+        {withArticle(page.role, true)} {ROLE_ABILITIES[page.role]}.
+      </p>
+      <p className="mt-4 text-river-200">Sign in with your GitHub account first; you come back to this page to accept.</p>
+      <Form method="post" action="/auth/github" className="mt-8 flex flex-wrap items-center gap-4">
+        <input type="hidden" name="returnTo" value={page.returnTo} />
+        <Button type="submit" className="px-5 py-2.5">
+          Sign in with GitHub
+        </Button>
+        <span className="text-sm text-river-300">The link works once and expires {utcMinute(page.expiresAt)}.</span>
+      </Form>
+    </>
+  );
+}
+
+function Unusable() {
+  return (
+    <Notice status={404} title="This invitation link cannot be used">
+      <p>
+        It may have expired (invitations work for 7 days), been used already, been withdrawn, or been cut short by a mail program. Ask the admin who invited
+        you to send a new invitation.
+      </p>
+    </Notice>
+  );
+}
 
 function Valid({ page, accepting }: { page: Known; accepting: boolean }) {
   return (

@@ -95,10 +95,15 @@ describe("People", () => {
     const pending = await (await ada.fetch("/t/riverline/people")).text();
     expect(pending).toMatch(/data-email="nina@example.net"/);
 
-    // Sign-in first, coming back to the invitation afterwards.
+    // Opened signed out: who invited which address to which tenant as what, then a sign-in that comes back here.
     const anonymous = await fetch(`${t.url}/invite/${token}`, { redirect: "manual" });
-    expect(anonymous.status).toBe(302);
-    expect(anonymous.headers.get("location")).toBe(`/signin?returnTo=${encodeURIComponent(`/invite/${token}`)}`);
+    expect(anonymous.status).toBe(200);
+    const before = await visible(anonymous);
+    expect(before).toContain("Join Riverline as an engineer");
+    expect(before.replace(/<[^>]+>/g, "")).toContain("ada-admin invited nina@example.net to the tenant Riverline");
+    expect(before).toContain("An engineer slices traffic");
+    expect(before).toMatch(/<form [^>]*action="\/auth\/github" method="post">/);
+    expect(before).toContain(`<input type="hidden" name="returnTo" value="/invite/${token}"/>`);
 
     const nina = await signIn(t.url, "nina-newcomer");
     const page = await nina.fetch(`/invite/${token}`);
@@ -160,6 +165,32 @@ describe("People", () => {
     expect((await rows(t, "SELECT actor, target FROM audit_log WHERE action = 'invite.revoke'"))[0]).toMatchObject({ actor: "ada-admin", target: "revoked@example.net" });
     // Revoking twice finds nothing pending.
     expect((await ada.post("/t/riverline/people", { intent: "revoke", inviteId: String(invite.id) })).status).toBe(404);
+  });
+
+  it("signed out, a link that cannot be used gets one plain 404 naming no tenant or person, whatever the reason", async () => {
+    const pageOf = async (token: string) => {
+      const res = await fetch(`${t.url}/invite/${token}`, { redirect: "manual" });
+      return { status: res.status, text: await visible(res) };
+    };
+    await ada.post("/t/riverline/people", { intent: "invite", email: "late@example.net", role: "admin" });
+    const expired = caughtLink(t, "late@example.net").token;
+    await rows(t, "UPDATE invites SET expires_at = ? WHERE email = 'late@example.net'", [Date.now() - 1000]);
+    await ada.post("/t/riverline/people", { intent: "invite", email: "gone@example.net", role: "viewer" });
+    const withdrawn = caughtLink(t, "gone@example.net").token;
+    const [gone] = await rows(t, "SELECT id FROM invites WHERE email = 'gone@example.net'");
+    await ada.post("/t/riverline/people", { intent: "revoke", inviteId: String(gone.id) });
+    // 43 characters of the token alphabet, but no invitation has it.
+    const never = "A".repeat(43);
+
+    const pages = [await pageOf(expired), await pageOf(withdrawn), await pageOf(never), await pageOf("short")];
+    for (const page of pages) {
+      expect(page.status).toBe(404);
+      expect(page.text).toContain("This invitation link cannot be used");
+      expect(page.text).not.toMatch(/Riverline|ada-admin|Ada Admin|late@example|gone@example|Sign in with GitHub/);
+    }
+    // The same page for every reason (common practice: a dead bearer link reveals nothing).
+    const body = (text: string) => text.slice(text.indexOf("<main"), text.indexOf("</main>"));
+    expect(new Set(pages.map((p) => body(p.text))).size).toBe(1);
   });
 
   it("answers 404 for a link that is no invitation", async () => {
