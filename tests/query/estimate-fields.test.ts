@@ -196,6 +196,16 @@ describe("AS number and interface filters and group-by, end to end", () => {
     expect(estimates).toEqual([...estimates].sort((x, y) => y - x));
   });
 
+  it("rank=split keeps the values: at τ = 0 every record is certain and in both halves, so the groups are the exact sums", async () => {
+    const expected = new Map<string, number>();
+    for (const r of sent) {
+      const k = r.outIf === null ? "none" : String(r.outIf);
+      expected.set(k, (expected.get(k) ?? 0) + r.packets);
+    }
+    const a = await answer({ groupBy: "outIf", metric: "packets", top: 1000, rank: "split" });
+    expect(new Map(a.groups.map((g) => [g.key, g.estimate]))).toEqual(expected);
+  });
+
   it("group by one field under a filter on another", async () => {
     const where = { dstAs: ["65536-65551"] };
     const expected = new Map<string, number>();
