@@ -311,10 +311,10 @@ function inRanges(value: number, lows: Float64Array, highs: Float64Array): boole
 }
 
 /**
- * Keeps in `sel[0..m)` the record indexes that pass one check, in order, and returns how many.
- * One tight loop per kind of check, so each stays monomorphic.
+ * Writes to `out` the record indexes of `sel[0..m)` that pass one check, in order, and returns
+ * how many (`out` may be `sel` itself). One tight loop per kind of check, so each stays monomorphic.
  */
-function narrow(check: Check, c: KeptColumns, words: { src: Int32Array; dst: Int32Array }, sel: Int32Array, m: number): number {
+function narrow(check: Check, c: KeptColumns, words: { src: Int32Array; dst: Int32Array }, sel: Int32Array, m: number, out: Int32Array): number {
   let kept = 0;
   switch (check.kind) {
     case "table": {
@@ -322,7 +322,7 @@ function narrow(check: Check, c: KeptColumns, words: { src: Int32Array; dst: Int
       const table = check.table;
       for (let j = 0; j < m; j++) {
         const i = sel[j];
-        if (table[column[i]] !== 0) sel[kept++] = i;
+        if (table[column[i]] !== 0) out[kept++] = i;
       }
       return kept;
     }
@@ -332,7 +332,7 @@ function narrow(check: Check, c: KeptColumns, words: { src: Int32Array; dst: Int
       const present = c.present;
       for (let j = 0; j < m; j++) {
         const i = sel[j];
-        if ((present[i] & bit) !== 0 && inRanges(column[i], lows, highs)) sel[kept++] = i;
+        if ((present[i] & bit) !== 0 && inRanges(column[i], lows, highs)) out[kept++] = i;
       }
       return kept;
     }
@@ -341,7 +341,7 @@ function narrow(check: Check, c: KeptColumns, words: { src: Int32Array; dst: Int
       const { set, exclude } = check;
       for (let j = 0; j < m; j++) {
         const i = sel[j];
-        if (matchesAny(set, a, 4 * i) !== exclude) sel[kept++] = i;
+        if (matchesAny(set, a, 4 * i) !== exclude) out[kept++] = i;
       }
       return kept;
     }
@@ -372,7 +372,7 @@ export function scan(reservoirs: readonly ScanReservoir[], q: CompiledQuery): Sc
   const byReservoirKey = new Map<string | number, number>();
   const values: (string | number)[] = [];
   const { checks, groupMask4: g4, groupMask6: g6 } = q;
-  // Indexes of the records that pass the checks so far; without checks, every index (identity).
+  // Every record index (identity), and the indexes that passed the checks so far (selected).
   let identity = new Int32Array(0);
   let selected = new Int32Array(0);
 
@@ -391,9 +391,10 @@ export function scan(reservoirs: readonly ScanReservoir[], q: CompiledQuery): Sc
     let sel = identity;
     let m = n;
     if (checks.length > 0) {
+      // The first check reads every index and writes the survivors; the others narrow them in place.
+      m = narrow(checks[0], c, addressWords, identity, n, selected);
       sel = selected;
-      sel.set(identity.subarray(0, n));
-      for (let k = 0; k < checks.length && m > 0; k++) m = narrow(checks[k], c, addressWords, sel, m);
+      for (let k = 1; k < checks.length && m > 0; k++) m = narrow(checks[k], c, addressWords, sel, m, sel);
       if (m === 0) continue;
     }
 
