@@ -35,6 +35,8 @@ describe("retention timer in the server", () => {
       env: parseEnv({ NODE_ENV: "development", HOST: "127.0.0.1", PORT: "0", IPFIX_UDP_PORT: "0", NETFLOW_UDP_PORT: "0", IPFIX_TCP_PORT: "0", DATABASE_URL: `file:${join(dir, "weir.db")}`, RETENTION_INTERVAL_MINUTES: "60" }),
       logger: pino({ level: "info" }, lines),
       uniform: seededUniform(3),
+      // Ingest checks flow times against this clock: an hour after the invented records, whenever the test runs.
+      now: () => T0 + HOUR_MS,
       retention: {
         firstRunDelayMs: 0,
         intervalMs: 20,
