@@ -52,7 +52,7 @@ export default function Ledger() {
         title="Ledger"
         lead={<>Who did what in {view.tenant.name}, and when: changes to members, invitations, keys and settings, exporter claims and releases, merges, sample-file and IPFIX-file uploads and roll-up runs, and the sign-ins of current members. Newest first; times in UTC, 24-hour.</>}
       />
-      <div className="grid gap-6">
+      <div className="grid grid-cols-[minmax(0,1fr)] gap-6">
         <Panel title="Filter">
           <Form method="get" action={base} className="grid gap-4 sm:grid-cols-2 lg:grid-cols-[minmax(0,14rem)_minmax(0,14rem)_minmax(0,11rem)_minmax(0,11rem)_auto] lg:items-end">
             <Field label="Action" htmlFor="ledger-action">

@@ -162,7 +162,7 @@ export default function People() {
       <PageHeader title="People" lead={<>Who belongs to {tenant.name}, with which role, and who is invited. Every change here is written to the Ledger.</>} />
       {result && result.intent !== "invite" ? <Outcome result={result} /> : null}
 
-      <div className="grid gap-6">
+      <div className="grid grid-cols-[minmax(0,1fr)] gap-6">
         <Panel title="Members">
           {removing ? <ConfirmRemoval base={base} tenantName={tenant.name} member={removing} self={removing.userId === me} lastAdmin={removing.role === "admin" && admins <= 1} /> : null}
           {/* The padding keeps the focus rings of edge buttons from being clipped by the scroll box. */}
@@ -254,7 +254,7 @@ export default function People() {
           </p>
         </Panel>
 
-        <div className="grid gap-6 lg:grid-cols-[minmax(0,24rem)_minmax(0,1fr)] lg:items-start">
+        <div className="grid grid-cols-[minmax(0,1fr)] gap-6 lg:grid-cols-[minmax(0,24rem)_minmax(0,1fr)] lg:items-start">
           <InviteForm base={base} result={result?.intent === "invite" ? result : undefined} fakeMail={fakeMail} />
           <Panel title="Pending invitations">
             {invites.length === 0 ? (

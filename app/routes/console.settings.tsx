@@ -76,7 +76,7 @@ export default function Settings({ loaderData, actionData }: Route.ComponentProp
         </div>
       ) : null}
 
-      <div className="grid gap-6 lg:grid-cols-[minmax(0,1fr)_22rem] lg:items-start">
+      <div className="grid grid-cols-[minmax(0,1fr)] gap-6 lg:grid-cols-[minmax(0,1fr)_22rem] lg:items-start">
         <Panel title="Sampling and retention">
           <p className="mb-6 rounded-md border-l-4 border-sand-400 bg-river-950 px-4 py-3 text-sm text-river-100">
             A change applies to windows created from now on. Windows that already exist keep their own sample size k and length, and estimates over old and new
