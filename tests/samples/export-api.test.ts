@@ -73,7 +73,10 @@ describe("GET /api/v1/samples", () => {
       const collector = await ensureCollector(t.server.db, tenant.id, group[0].collector);
       const manager = group[0].node === "node-b" ? nodeB : t.server.manager;
       for (let i = 0; i < group.length; i += 100) {
-        await manager.ingest({ tenant, collector, records: group.slice(i, i + 100).map((f) => f.record), receivedAt: T0 });
+        const records = group.slice(i, i + 100).map((f) => f.record);
+        // Received after the last record started: the time check refuses starts ahead of the receive clock.
+        const receivedAt = records.reduce((latest, r) => Math.max(latest, r.start ?? 0, r.end ?? 0), T0);
+        await manager.ingest({ tenant, collector, records, receivedAt });
       }
     }
   }
