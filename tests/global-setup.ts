@@ -4,7 +4,16 @@
 // reference decoders, and python3-ipfix's element table and encoder as references. CI machines start without them, so install whichever is missing with
 // apt-get (one update, one install).
 import { execSync } from "node:child_process";
-import { existsSync } from "node:fs";
+import { existsSync, rmSync } from "node:fs";
+import { join } from "node:path";
+import type { TestProject } from "vitest/node";
+
+declare module "vitest" {
+  export interface ProvidedContext {
+    /** Tells one test run from the next: tests/helpers/build.ts builds once per run. */
+    testRunId: string;
+  }
+}
 
 export const CHROMIUM = "/usr/bin/chromium";
 export const SOFTFLOWD = "/usr/sbin/softflowd";
@@ -21,7 +30,10 @@ const DEBIAN_PACKAGES: { path: string; name: string }[] = [
   { path: PYTHON_IPFIX, name: "python3-ipfix" },
 ];
 
-export default function setup(): void {
+export default function setup(project: TestProject): void {
+  project.provide("testRunId", `${process.pid}-${Date.now()}`);
+  // A lock left by a run that was killed mid-build (no test runs yet, so nobody holds it).
+  rmSync(join(import.meta.dirname, "..", "build.test-lock"), { recursive: true, force: true });
   const missing = DEBIAN_PACKAGES.filter((p) => !existsSync(p.path));
   if (missing.length === 0) return;
   const names = missing.map((p) => p.name).join(" ");

@@ -10,6 +10,7 @@ import { promisify } from "node:util";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { EnvError, parseEnv } from "~/env.server";
 import { startServer, type WeirServer } from "~/server/app.server";
+import { productionBuild } from "../helpers/build";
 
 const ROOT = fileURLToPath(new URL("../..", import.meta.url));
 const REAL_GITHUB = { GITHUB_CLIENT_ID: "Iv1.0123456789abcdef", GITHUB_CLIENT_SECRET: "0".repeat(40) };
@@ -90,7 +91,7 @@ describe("demo mode on a production build", () => {
   let server: WeirServer;
 
   beforeAll(async () => {
-    await promisify(execFile)(process.execPath, [join(ROOT, "node_modules/@react-router/dev/bin.js"), "build"], { cwd: ROOT, timeout: 240_000 });
+    await productionBuild();
     dir = mkdtempSync(join(tmpdir(), "weir-demo-production-"));
     server = await startServer({
       env: parseEnv({ NODE_ENV: "production", WEIR_DEMO: "1", HOST: "127.0.0.1", PORT: "0", LOG_LEVEL: "silent", DATABASE_URL: `file:${join(dir, "weir.db")}`, RETENTION_INTERVAL_MINUTES: "0", CALIBRATION_INTERVAL_MINUTES: "0" }),

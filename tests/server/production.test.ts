@@ -1,15 +1,14 @@
 // Native collection and IPFIX files against a production build: the route modules run from
 // build/ (bundled), the listeners and parse workers from the host, as `npm start` runs them.
-import { execFile } from "node:child_process";
 import { mkdtempSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
 import { fileURLToPath } from "node:url";
-import { promisify } from "node:util";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { parseEnv } from "~/env.server";
 import { claimExporter } from "~/exporters/claims.server";
 import { startServer, type WeirServer } from "~/server/app.server";
+import { productionBuild } from "../helpers/build";
 import { ipfixMessages, sendUdp, sums, testFlows, waitFor } from "../collect/helpers";
 import { postFlows, tenantWithKey } from "../helpers/server";
 
@@ -31,7 +30,7 @@ describe("a production build", () => {
   let server: WeirServer;
 
   beforeAll(async () => {
-    await promisify(execFile)(process.execPath, [join(ROOT, "node_modules/@react-router/dev/bin.js"), "build"], { cwd: ROOT, timeout: 180_000 });
+    await productionBuild();
     dir = mkdtempSync(join(tmpdir(), "weir-production-"));
     server = await startServer({
       env: parseEnv({
