@@ -4,6 +4,7 @@
 // older than its sources (while the database is migrated and seeded), seeds the demo
 // tenants when they are missing (`seed.ts`), starts the server and prints the public DEMO
 // keys with copy-pasteable requests.
+import "./demo-env";
 import { spawn } from "node:child_process";
 import { readdirSync, statSync } from "node:fs";
 import { join } from "node:path";
@@ -20,10 +21,9 @@ const ROOT = fileURLToPath(new URL("..", import.meta.url));
 const startedAt = performance.now();
 const seconds = () => ((performance.now() - startedAt) / 1000).toFixed(1);
 
-// Demo mode and a production build; variables set by hand (or in .env) still win for the
-// rest, and the environment check refuses GITHUB_CLIENT_ID/SECRET or SMTP_URL beside demo mode.
-process.env.WEIR_DEMO = "1";
-process.env.NODE_ENV = "production";
+// Demo mode and a production build (set in ./demo-env, imported first); variables set by hand
+// (or in .env) still win for the rest, and the environment check refuses GITHUB_CLIENT_ID/SECRET
+// or SMTP_URL beside demo mode.
 const env = loadEnv();
 console.log(DEMO_BANNER);
 

@@ -1,7 +1,7 @@
 // Demo mode (WEIR_DEMO=1, set by `npm run demo`): the local fake GitHub and fake SMTP in any
 // build, never together with real OAuth credentials or a mail relay. Sign-in follows the
 // OAuth 2.0 authorization-code flow (RFC 6749 §4.1), which the fake serves.
-import { execFile } from "node:child_process";
+import { execFile, spawn } from "node:child_process";
 import { mkdtempSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
@@ -11,6 +11,7 @@ import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { EnvError, parseEnv } from "~/env.server";
 import { startServer, type WeirServer } from "~/server/app.server";
 import { productionBuild } from "../helpers/build";
+import { signIn } from "../helpers/session";
 
 const ROOT = fileURLToPath(new URL("../..", import.meta.url));
 const REAL_GITHUB = { GITHUB_CLIENT_ID: "Iv1.0123456789abcdef", GITHUB_CLIENT_SECRET: "0".repeat(40) };
@@ -121,4 +122,50 @@ describe("demo mode on a production build", () => {
     for (const cookie of cookies) expect(cookie).not.toMatch(/;\s*secure/i);
     expect((await fetch(`${server.url}/dev/mail`)).status).toBe(200);
   });
+});
+
+describe("`npm run demo` as the README runs it", () => {
+  it("serves the console's pages from the production build to a signed-in member, seeded and warmed", async () => {
+    // React picks its development or production build from NODE_ENV when first loaded: demo.ts
+    // must set it before its imports load React, or the build's react-dom/server (production)
+    // meets a development React and every page answers 500 while the API still works.
+    await productionBuild();
+    const dir = mkdtempSync(join(tmpdir(), "weir-demo-run-"));
+    const child = spawn(process.execPath, ["--import", "tsx", join(ROOT, "scripts/demo.ts")], {
+      cwd: ROOT,
+      env: {
+        PATH: process.env.PATH,
+        HOME: process.env.HOME,
+        DATABASE_URL: `file:${join(dir, "weir.db")}`,
+        PORT: "0",
+        IPFIX_UDP_PORT: "0",
+        NETFLOW_UDP_PORT: "0",
+        IPFIX_TCP_PORT: "0",
+        LOG_LEVEL: "warn",
+      },
+      stdio: ["ignore", "pipe", "pipe"],
+    });
+    try {
+      const url = await new Promise<string>((resolve, reject) => {
+        let out = "";
+        child.stdout.on("data", (chunk: Buffer) => {
+          out += chunk.toString();
+          const found = /Weir demo running at (http:\/\/\S+)/.exec(out);
+          if (found) resolve(found[1]);
+        });
+        child.once("exit", (code) => reject(new Error(`demo exited with ${code} before serving:\n${out}`)));
+      });
+      const eli = await signIn(url, "eli-engineer");
+      for (const page of ["/t/riverline/slice", "/t/riverline/intake", "/t/riverline/merge"]) {
+        const res = await eli.fetch(page);
+        expect(res.status, page).toBe(200);
+        // The console says sign-in and mail are fakes (the header banner of development and demo mode).
+        expect(await res.text()).toContain("go to local fakes started by Weir");
+      }
+    } finally {
+      child.kill("SIGTERM");
+      await new Promise((resolve) => (child.exitCode === null ? child.once("exit", resolve) : resolve(null)));
+      rmSync(dir, { recursive: true, force: true });
+    }
+  }, 300_000);
 });
