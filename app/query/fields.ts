@@ -211,7 +211,7 @@ export const QUERY_FIELDS = [
     input: {
       section: "routing",
       label: "Source AS numbers",
-      placeholder: "add an AS number or range, e.g. 64496-64511",
+      placeholder: "add an AS or range, e.g. 64496-64511",
       hint: "AS numbers 0–4294967295 (RFC 6793), or ranges. Records without a source AS never match.",
     },
   },
@@ -224,7 +224,7 @@ export const QUERY_FIELDS = [
     input: {
       section: "routing",
       label: "Destination AS numbers",
-      placeholder: "add an AS number or range, e.g. 65536-65551",
+      placeholder: "add an AS or range, e.g. 65536-65551",
       hint: "AS numbers 0–4294967295 (RFC 6793), or ranges. Records without a destination AS never match.",
     },
   },
