@@ -186,14 +186,22 @@ async function reservoirsInRange(db: Db, tenantId: number, query: EstimateQuery)
   }
   const found = await db.$client.execute({
     sql:
-      "SELECT r.id, c.name, r.window_start, r.k, r.tau, r.records, r.bytes, r.packets, r.next_seq, r.window_seconds " +
+      `SELECT ${RESERVOIR_ROW_COLUMNS} ` +
       "FROM reservoirs r JOIN collectors c ON c.id = r.collector_id AND c.tenant_id = r.tenant_id " +
       // An empty row is left behind when a batch fails after creating its reservoir.
       `WHERE r.tenant_id = ? AND r.window_start >= ? AND r.window_start < ? AND r.records > 0${byName} ` +
       "ORDER BY r.window_start, c.name, r.id",
     args,
   });
-  return found.rows.map((row) => ({
+  return found.rows.map(reservoirRowOf);
+}
+
+/** The select list `reservoirRowOf` reads (aliases r = reservoirs, c = collectors); more columns may follow it. */
+export const RESERVOIR_ROW_COLUMNS = "r.id, c.name, r.window_start, r.k, r.tau, r.records, r.bytes, r.packets, r.next_seq, r.window_seconds";
+
+/** A ReservoirRow from a result row that starts with RESERVOIR_ROW_COLUMNS. */
+export function reservoirRowOf(row: Row): ReservoirRow {
+  return {
     id: Number(row[0]),
     collector: String(row[1]),
     windowStart: Number(row[2]),
@@ -205,7 +213,7 @@ async function reservoirsInRange(db: Db, tenantId: number, query: EstimateQuery)
     packets: BigInt(String(row[7])),
     nextSeq: Number(row[8]),
     windowSeconds: Number(row[9]),
-  }));
+  };
 }
 
 /**

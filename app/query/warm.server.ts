@@ -1,6 +1,6 @@
 import type { Db } from "~/db/client.server";
 import type { ReservoirManager } from "~/ingest/manager.server";
-import { keptColumns, type ReservoirRow } from "./estimate.server";
+import { keptColumns, RESERVOIR_ROW_COLUMNS, reservoirRowOf, type ReservoirRow } from "./estimate.server";
 import type { SnapshotCache } from "./snapshot-cache";
 
 /** How far back the warm-up reads: the range the console and the demo ask about first. */
@@ -44,7 +44,7 @@ export async function warmRecentWindows(
   const maxRecords = options.maxRecords ?? Math.floor(ctx.snapshots.maxRecords / 2);
   const found = await ctx.db.$client.execute({
     sql:
-      "SELECT r.id, r.tenant_id, c.name, r.window_start, r.window_seconds, r.k, r.tau, r.records, r.bytes, r.packets, r.next_seq " +
+      `SELECT ${RESERVOIR_ROW_COLUMNS}, r.tenant_id ` +
       "FROM reservoirs r JOIN collectors c ON c.id = r.collector_id AND c.tenant_id = r.tenant_id " +
       "WHERE r.window_start >= ? AND r.records > 0 ORDER BY r.window_start DESC, r.id",
     args: [options.now - (options.sinceMs ?? WARM_WINDOW_MS)],
@@ -52,28 +52,18 @@ export async function warmRecentWindows(
   const report: WarmReport = { reservoirs: 0, records: 0, partial: false };
   const byTenant = new Map<number, ReservoirRow[]>();
   for (const row of found.rows) {
-    const kept = Math.min(Number(row[5]), Number(row[7]));
+    const reservoir = reservoirRowOf(row);
+    const kept = Math.min(reservoir.k, reservoir.records);
     if (report.records + kept > maxRecords) {
       report.partial = true;
       break;
     }
     report.records += kept;
     report.reservoirs++;
-    const tenantId = Number(row[1]);
+    const tenantId = Number(row[10]);
     let rows = byTenant.get(tenantId);
     if (!rows) byTenant.set(tenantId, (rows = []));
-    rows.push({
-      id: Number(row[0]),
-      collector: String(row[2]),
-      windowStart: Number(row[3]),
-      windowSeconds: Number(row[4]),
-      k: Number(row[5]),
-      tau: Number(row[6]),
-      records: Number(row[7]),
-      bytes: BigInt(String(row[8])),
-      packets: BigInt(String(row[9])),
-      nextSeq: Number(row[10]),
-    });
+    rows.push(reservoir);
   }
   for (const [tenantId, rows] of byTenant) {
     for (let i = 0; i < rows.length; i += RESERVOIRS_PER_STEP) {

@@ -2,7 +2,7 @@ import { readFileSync } from "node:fs";
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { ensureUserByEmail, setMembership } from "~/auth/users.server";
 import { createTenant } from "~/tenants.server";
-import { launchBrowser, signInWithBrowser, type TestBrowser } from "../helpers/browser";
+import { launchBrowser, signInWithBrowser, type TestBrowser, recentInventedFlows } from "../helpers/browser";
 import { startTestServer, type TestServer } from "../helpers/server";
 
 // The console in a real browser (Debian's chromium driven by playwright-core), against a
@@ -47,15 +47,7 @@ describe("console in a browser", () => {
   it("flows posted with that key show in Slice with an interval, a chart, and a CSV export", async () => {
     // Heavy-tailed invented flows on documentation addresses (RFC 5737), more than k, so τ > 0.
     const now = Date.now();
-    const records = Array.from({ length: 400 }, (_, i) => ({
-      src: `198.51.100.${i % 200}`,
-      dst: `203.0.113.${i % 50}`,
-      dport: i % 3 === 0 ? 53 : 443,
-      proto: i % 3 === 0 ? 17 : 6,
-      bytes: Math.round(60 / Math.pow(((i * 7919) % 997) / 997 + 0.001, 0.8)),
-      packets: 1 + (i % 7),
-      start: now - (i % 30) * 60_000,
-    }));
+    const records = recentInventedFlows(now, 400);
     const res = await fetch(`${t.url}/api/v1/flows`, {
       method: "POST",
       headers: { authorization: `Bearer ${secret}`, "content-type": "application/json" },

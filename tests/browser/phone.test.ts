@@ -1,7 +1,7 @@
 import type { Browser, Locator, Page } from "playwright-core";
 import { afterAll, beforeAll, describe, expect, it, vi } from "vitest";
 import { ensureUserByEmail, setMembership } from "~/auth/users.server";
-import { launchBrowser, type TestBrowser } from "../helpers/browser";
+import { launchBrowser, type TestBrowser, recentInventedFlows } from "../helpers/browser";
 import { keyFor, postFlows, startTestServer, tenantWithKey, type TestServer } from "../helpers/server";
 
 // The console at a phone's width in a real browser (Debian's chromium driven by playwright-core):
@@ -62,15 +62,7 @@ describe("the console at 390 px", () => {
     // Heavy-tailed invented flows on documentation addresses (RFC 5737) over the last half hour.
     const now = Date.now();
     for (const [key, offset] of [[riverline.key, 0], [other.key, 1]] as const) {
-      const records = Array.from({ length: 300 }, (_, i) => ({
-        src: `198.51.100.${(i + offset) % 200}`,
-        dst: `203.0.113.${i % 50}`,
-        dport: i % 3 === 0 ? 53 : 443,
-        proto: i % 3 === 0 ? 17 : 6,
-        bytes: Math.round(60 / Math.pow(((i * 7919) % 997) / 997 + 0.001, 0.8)),
-        packets: 1 + (i % 7),
-        start: now - (i % 30) * 60_000,
-      }));
+      const records = recentInventedFlows(now, 300, offset);
       expect((await postFlows(t.url, key, JSON.stringify(records))).status).toBe(200);
     }
     b = await launchBrowser();

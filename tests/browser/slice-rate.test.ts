@@ -1,6 +1,6 @@
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import { ensureUserByEmail, setMembership } from "~/auth/users.server";
-import { launchBrowser, signInWithBrowser, type TestBrowser } from "../helpers/browser";
+import { launchBrowser, signInWithBrowser, type TestBrowser, recentInventedFlows } from "../helpers/browser";
 import { postFlows, tenantWithKey, startTestServer, type TestServer } from "../helpers/server";
 
 // The Slice rate view in a real browser (Debian's chromium driven by playwright-core): the
@@ -27,15 +27,7 @@ describe("Slice: Total | Rate in a browser", () => {
   it("switching to Rate puts unit=rate in the URL and shows bit/s, the p95 and the per-window chart", async () => {
     // Invented flows of the last half hour on documentation addresses (RFC 5737), more than k, so τ > 0.
     const now = Date.now();
-    const records = Array.from({ length: 400 }, (_, i) => ({
-      src: `198.51.100.${i % 200}`,
-      dst: `203.0.113.${i % 50}`,
-      dport: i % 3 === 0 ? 53 : 443,
-      proto: i % 3 === 0 ? 17 : 6,
-      bytes: Math.round(60 / Math.pow(((i * 7919) % 997) / 997 + 0.001, 0.8)),
-      packets: 1 + (i % 7),
-      start: now - (i % 30) * 60_000,
-    }));
+    const records = recentInventedFlows(now, 400);
     expect((await postFlows(t.url, key, JSON.stringify(records))).status).toBe(200);
 
     const { context, page, errors } = await signInWithBrowser(b.browser, t.url, "vera-viewer");

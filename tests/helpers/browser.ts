@@ -45,3 +45,20 @@ export async function signInWithBrowser(browser: Browser, baseUrl: string, login
   await page.waitForURL((url) => !url.pathname.startsWith("/signin") && !url.pathname.startsWith("/auth/"));
   return { context, page, errors };
 }
+
+/**
+ * Heavy-tailed invented flows on documentation addresses (RFC 5737) over the last half hour
+ * before `now`, as JSON records for POST /api/v1/flows; `offset` shifts the sources so two
+ * collectors do not send the same flows.
+ */
+export function recentInventedFlows(now: number, count: number, offset = 0) {
+  return Array.from({ length: count }, (_, i) => ({
+    src: `198.51.100.${(i + offset) % 200}`,
+    dst: `203.0.113.${i % 50}`,
+    dport: i % 3 === 0 ? 53 : 443,
+    proto: i % 3 === 0 ? 17 : 6,
+    bytes: Math.round(60 / Math.pow(((i * 7919) % 997) / 997 + 0.001, 0.8)),
+    packets: 1 + (i % 7),
+    start: now - (i % 30) * 60_000,
+  }));
+}
