@@ -59,6 +59,10 @@ export const envSchema = z
     // (each tenant's retention settings); 0 turns the timer off (run `npm run admin -- retention run`).
     // In a deployment of several nodes on one database, leave it on for one node only.
     RETENTION_INTERVAL_MINUTES: z.coerce.number().int().min(0).default(60),
+    // How often the server packs closed windows' kept records into one blob per reservoir for
+    // cold queries (app/query/pack.server.ts; at most 2 000 reservoirs a run, newest first);
+    // 0 turns it off (queries then read kept_records row by row, slower but the same answers).
+    PACK_INTERVAL_SECONDS: z.coerce.number().int().min(0).default(60),
     // How often the server checks closed windows' 95% intervals against their exact totals for the
     // calibration report (at most 500 windows a run, oldest first); 0 turns the checks off.
     CALIBRATION_INTERVAL_MINUTES: z.coerce.number().int().min(0).default(5),

@@ -209,6 +209,22 @@ export const keptRecords = sqliteTable(
 );
 
 /**
+ * A closed reservoir's kept records once more, packed in query columns
+ * (app/query/packed-columns.ts): a cold query of a day reads one blob per reservoir and
+ * lays typed arrays over it, instead of reading one row per kept record and decoding each.
+ * A copy for the estimate only (no priorities): `kept_records` stays the record of truth,
+ * and a row here counts only while its `next_seq` equals the reservoir's (every change to
+ * the kept set moves `next_seq`). Written by app/query/pack.server.ts.
+ */
+export const packedColumns = sqliteTable("packed_columns", {
+  reservoirId: integer("reservoir_id")
+    .primaryKey()
+    .references(() => reservoirs.id, { onDelete: "cascade" }),
+  nextSeq: integer("next_seq").notNull(),
+  data: blob("data", { mode: "buffer" }).notNull(),
+});
+
+/**
  * One row per accepted ingest batch. `response` is the JSON answer, so a retry with the
  * same Idempotency-Key gets the same answer without counting the batch twice.
  */

@@ -7,6 +7,7 @@ import { copiesAndMerges } from "./collector-kinds.server";
 import { buildAnswer, largestRatio, unseenRatio, type EstimateAnswer, type WindowSpan } from "./answer";
 import type { KeptColumns } from "./columns";
 import { keptRowsToColumns } from "~/ingest/kept-codec";
+import { PACKING_SUPPORTED, unpackColumns } from "./packed-columns";
 import type { EstimateQuery } from "./request";
 import { compileQuery, type ScanReservoir } from "./scan";
 import { discloseRollUps } from "./rollup-disclosure";
@@ -242,7 +243,9 @@ export async function keptColumns(ctx: EstimateContext, tenantId: number, rows: 
   for (const result of results) {
     for (const row of result.rows) {
       const id = Number(row[0]);
-      const snapshot = { nextSeq: Number(row[1]), tau: Number(row[2]), columns: columnsOfRow(row) };
+      const columns = columnsOfRow(row);
+      if (columns === null) continue;
+      const snapshot = { nextSeq: Number(row[1]), tau: Number(row[2]), columns };
       loaded.set(id, snapshot);
       cache.set(id, snapshot.nextSeq, snapshot.columns);
     }
@@ -257,23 +260,29 @@ export async function keptColumns(ctx: EstimateContext, tenantId: number, rows: 
 }
 
 /**
- * One row per reservoir with all its kept rows (kept-codec.ts layout) concatenated in one
- * blob: libsql builds a JavaScript object per result row, some 30 µs per kept record when
- * each is its own row, against a plain byte copy this way. group_concat copies blob bytes
- * as they are, NULs included, and CAST back to BLOB returns them unchanged. τ and next_seq
- * come from the same statement, hence the same snapshot, so they belong to exactly these
- * kept records even if a batch committed since the reservoir rows were read.
+ * One row per reservoir with its kept records: the packed columns (packed-columns.ts) when a
+ * copy at the reservoir's `next_seq` exists — a closed window, packed by pack.server.ts — else
+ * every kept row (kept-codec.ts layout) concatenated in one blob. libsql builds a JavaScript
+ * object per result row, some 30 µs per kept record when each is its own row, against a
+ * plain byte copy this way. group_concat copies blob bytes as they are, NULs included, and
+ * CAST back to BLOB returns them unchanged; it runs only where no current copy is. τ and
+ * next_seq come from the same statement, hence the same snapshot, so they belong to exactly
+ * these kept records even if a batch committed since the reservoir rows were read.
  */
 function keptSelect(ids: number): string {
+  // The join matches only a current copy; its key, not its blob, tells whether one is there.
+  const [packed, hasPacked] = PACKING_SUPPORTED ? ["p.data", "p.reservoir_id"] : ["NULL", "NULL"];
   return (
-    "SELECT k.reservoir_id, r.next_seq, r.tau, CAST(group_concat(k.data, '') AS BLOB) " +
-    "FROM kept_records k JOIN reservoirs r ON r.id = k.reservoir_id " +
-    `WHERE r.tenant_id = ? AND k.reservoir_id IN (${new Array(ids).fill("?").join(", ")}) ` +
-    "GROUP BY k.reservoir_id"
+    `SELECT r.id, r.next_seq, r.tau, ${packed}, ` +
+    `CASE WHEN ${hasPacked} IS NULL THEN (SELECT CAST(group_concat(k.data, '') AS BLOB) FROM kept_records k WHERE k.reservoir_id = r.id) END ` +
+    "FROM reservoirs r LEFT JOIN packed_columns p ON p.reservoir_id = r.id AND p.next_seq = r.next_seq " +
+    `WHERE r.tenant_id = ? AND r.id IN (${new Array(ids).fill("?").join(", ")})`
   );
 }
 
-/** The columns of one reservoir from its row of `keptSelect`. */
-function columnsOfRow(row: Row): KeptColumns {
-  return keptRowsToColumns(new Uint8Array(row[3] as ArrayBuffer));
+/** The columns of one reservoir from its row of `keptSelect`; null when it keeps no record (any more). */
+function columnsOfRow(row: Row): KeptColumns | null {
+  if (row[3] !== null) return unpackColumns(new Uint8Array(row[3] as ArrayBuffer));
+  if (row[4] === null) return null;
+  return keptRowsToColumns(new Uint8Array(row[4] as ArrayBuffer));
 }

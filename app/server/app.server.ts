@@ -21,6 +21,10 @@ import { startCalibrationTimer, type CalibrationTimerOptions } from "../calibrat
 import { Collection } from "../collect/collection.server";
 import { SnapshotCache } from "../query/snapshot-cache";
 import { warmRecentWindows, type WarmReport } from "../query/warm.server";
+import { startPackTimer } from "../query/pack.server";
+
+// Long enough after a start for the warm-up of recent windows to have read them first.
+const PACK_FIRST_RUN_DELAY_MS = 30_000;
 
 declare module "react-router" {
   // What every loader and action receives as `context`. Server-wide resources travel this
@@ -67,6 +71,8 @@ export interface StartServerOptions {
    * IPFIX_TCP_PORT): null turns one off, 0 asks the OS for a free port (tests).
    */
   collect?: { ipfixUdpPort?: number | null; netflowUdpPort?: number | null; ipfixTcpPort?: number | null; flushMs?: number; statsIntervalMs?: number };
+  /** Overrides of the packing of closed windows (interval from `env.PACK_INTERVAL_SECONDS`, first run 30 s after start). */
+  pack?: { intervalMs?: number; firstRunDelayMs?: number; now?: () => number };
   /** Read the last day's kept records into the snapshot cache after start, in the background (default true). */
   warm?: boolean;
 }
@@ -198,6 +204,10 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
       { db, logger },
       { ...options.calibration, intervalMs: options.calibration?.intervalMs ?? env.CALIBRATION_INTERVAL_MINUTES * 60_000 },
     );
+    const packing = startPackTimer(
+      { db, logger },
+      { firstRunDelayMs: PACK_FIRST_RUN_DELAY_MS, ...options.pack, intervalMs: options.pack?.intervalMs ?? env.PACK_INTERVAL_SECONDS * 1000 },
+    );
     let closing: Promise<void> | undefined;
     // The first question after a start is usually about the last day: read it into the cache
     // now, in steps between which requests are served, rather than in that question's time.
@@ -217,9 +227,9 @@ export async function startServer(options: StartServerOptions = {}): Promise<Wei
           );
     const close = () => {
       // The pool closes after shutDown has drained the HTTP server, so no request loses its parser.
-      // A retention run stops after its current transaction, and a calibration run ends, before the database closes.
+      // A retention run stops after its current transaction, a packing run after its current step, and a calibration run ends, before the database closes.
       // The listeners stop and store what they buffered before the database closes.
-      closing ??= Promise.all([retention.stop(), calibration.stop(), warmed])
+      closing ??= Promise.all([retention.stop(), calibration.stop(), packing.stop(), warmed])
         .then(() => listeners.close())
         .then(() => shutDown(httpServer, vite, db, logger, manager))
         .then(() => pool.close())

@@ -25,6 +25,8 @@ export async function startTestServer(
       RETENTION_INTERVAL_MINUTES: "0",
       // Off too: calibration tests run the checks explicitly.
       CALIBRATION_INTERVAL_MINUTES: "0",
+      // Off too: tests that read packed windows pack them explicitly (app/query/pack.server.ts).
+      PACK_INTERVAL_SECONDS: "0",
       // Accepted however old: tests post invented records dated years back, and retention is off (above).
       INGEST_REFUSE_EXPIRED: "false",
       ...options.env }),

@@ -82,6 +82,7 @@ describe("server (development mode, Vite middleware)", () => {
       "kept_records",
       "memberships",
       "merges",
+      "packed_columns",
       "reservoirs",
       "sample_imports",
       "tenants",
