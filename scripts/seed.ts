@@ -14,6 +14,7 @@ import { ReservoirManager } from "~/ingest/manager.server";
 import type { FlowRecord } from "~/flow/record";
 import { claimExporter } from "~/exporters/claims.server";
 import { createMerge } from "~/merges/merges.server";
+import { packClosedWindows } from "~/query/pack.server";
 import { seededUniform } from "~/sampling/uniform";
 import { createTenant, ensureCollector } from "~/tenants.server";
 import { DEMO_KEYS, DEMO_MEMBERS, demoKeyLines } from "./demo-keys";
@@ -160,6 +161,10 @@ export async function seedDemo(db: Db, options: SeedOptions): Promise<SeedResult
     await claimExporter(db, { tenantId: made.get(claim.tenant)!.id, collector: claim.collector, cidr: claim.cidr, domainId: claim.domain ?? null, actor: { id: null, label: "seed (demo data)" } });
   }
   log(`Exporter claims: ${DEMO_CLAIMS.map((c) => `${c.cidr}${c.domain === undefined ? "" : ` domain ${c.domain}`} → ${c.tenant}/${c.collector}`).join("; ")}`);
+
+  // The closed windows packed now, as the server's packing timer would within a minute of its start.
+  const packed = await packClosedWindows(db, { now, maxReservoirs: Number.MAX_SAFE_INTEGER });
+  log(`Packed ${packed.reservoirs.toLocaleString("en-US")} closed windows (${packed.records.toLocaleString("en-US")} kept records) for cold queries.`);
 
   const total = result.collectors.reduce((sum, c) => sum + c.records, 0);
   log(`Seeded ${total.toLocaleString("en-US")} flow records in ${((performance.now() - startedAt) / 1000).toFixed(1)} s. Events worth slicing:`);

@@ -8,6 +8,7 @@ import { closeDb, createDb } from "~/db/client.server";
 import type { FlowRecord } from "~/flow/record";
 import { ReservoirManager } from "~/ingest/manager.server";
 import { parsePrefix, prefixRange } from "~/net/prefix";
+import { packClosedWindows } from "~/query/pack.server";
 import { runRetention } from "~/retention/rollup.server";
 import { readStoredWindows } from "~/samples/store.server";
 import { benchRecords } from "./data";
@@ -19,8 +20,15 @@ export interface QueryBench {
   windows: number;
   keptRecords: number;
   buildSeconds: number;
-  /** The first question of a new server process on the day (production build, warm-up off): kept records read cold from SQLite. */
+  /** The first question of a new server process on the day (production build, warm-up off), the day's windows packed (packed_columns). */
   firstQueryMs: number;
+  /** Baseline: the same first question before packing, every kept record read as its own kept_records row. */
+  firstQueryUnpackedMs: number;
+  /** Packing the day's closed windows (packClosedWindows, as the server's timer does): seconds, and bytes written. */
+  packSeconds: number;
+  packedBytes: number;
+  /** The database on disk before packing (weirBytes is after). */
+  unpackedWeirBytes: number;
   /** The same first question against the development server (Vite compiles the route on it): what the demo served before. */
   firstQueryDevelopmentMs: number;
   p50Ms: number;
@@ -89,6 +97,17 @@ export async function benchQuery(total = 10_000_000, queries = 50, exactRuns = 5
     closeDb(db);
 
     const development = await firstQuery(`file:${weirPath}`, key, dayStart, false);
+    // The cold question on the rows as ingest left them, then on the day packed as the
+    // server's packing timer leaves closed windows (app/query/pack.server.ts).
+    const unpackedWeirBytes = databaseBytes(weirPath);
+    const firstQueryUnpackedMs = await firstQuery(`file:${weirPath}`, key, dayStart, true);
+    const packing = await createDb(`file:${weirPath}`);
+    const packStart = performance.now();
+    const packed = await packClosedWindows(packing, { now: Date.now() });
+    const packSeconds = (performance.now() - packStart) / 1000;
+    await packing.$client.execute("PRAGMA wal_checkpoint(TRUNCATE)");
+    closeDb(packing);
+    const packedWeirBytes = databaseBytes(weirPath);
     const before = await querySession(`file:${weirPath}`, key, dayStart, queries);
 
     // The exact answer to the same question: a full scan of every record.
@@ -132,12 +151,16 @@ export async function benchQuery(total = 10_000_000, queries = 50, exactRuns = 5
       keptRecords: Number(stats.kept),
       buildSeconds,
       firstQueryMs: before.firstQueryMs,
+      firstQueryUnpackedMs,
+      packSeconds,
+      packedBytes: packed.bytes,
+      unpackedWeirBytes,
       firstQueryDevelopmentMs: development,
       p50Ms: percentile(before.latencies, 0.5),
       p95Ms: percentile(before.latencies, 0.95),
       exactP50Ms: percentile(exact, 0.5),
       exactRuns,
-      weirBytes: databaseBytes(weirPath),
+      weirBytes: packedWeirBytes,
       keepAllBytes: databaseBytes(join(dir, "keep-all.db")),
       zOfCheckedQuery: Math.abs(before.checked.estimate - exactTotal) / before.checked.stdError,
       rollUp: {

@@ -131,6 +131,20 @@ describe("demo seed", () => {
     expect(by.get(DEMO_MERGE)).toBe(by.get("pop-north")! + by.get("pop-south")!);
   });
 
+  it("packs every closed window for cold queries (one window length after its end), and no open one", async () => {
+    const windows = await db.$client.execute({
+      sql:
+        "SELECT r.window_start + 2 * r.window_seconds * 1000 <= ? AS closed, p.next_seq = r.next_seq AS current FROM reservoirs r " +
+        "JOIN tenants t ON t.id = r.tenant_id LEFT JOIN packed_columns p ON p.reservoir_id = r.id WHERE t.slug <> 'bystander' AND r.records > 0",
+      args: [NOW],
+    });
+    const closed = windows.rows.filter((row) => Number(row.closed) === 1);
+    expect(closed.length).toBeGreaterThan(0);
+    // The rule of app/query/pack.server.ts, restated: closed windows packed at their current next_seq, open ones not at all.
+    expect(closed.every((row) => Number(row.current) === 1)).toBe(true);
+    expect(windows.rows.filter((row) => Number(row.closed) === 0).every((row) => row.current === null)).toBe(true);
+  });
+
   it("does nothing when run again", async () => {
     const before = await counts(db);
     const again = await seedDemo(db, { node: NODE, now: NOW + 3600_000 });
