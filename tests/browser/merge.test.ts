@@ -6,7 +6,9 @@ import { promisify } from "node:util";
 import { afterAll, beforeAll, describe, expect, it, vi } from "vitest";
 import { ensureUserByEmail, setMembership } from "~/auth/users.server";
 import { flowRecordToJson } from "~/flow/record";
+import { tau } from "~/components/merge/format";
 import { windowStartOf } from "~/ingest/window";
+import type { MergeAnswer } from "~/merges/answer";
 import { parseSampleFile } from "~/samples/document";
 import { benchRecords } from "../../scripts/bench/data";
 import { launchBrowser, signInWithBrowser, type TestBrowser } from "../helpers/browser";
@@ -67,12 +69,28 @@ describe("the Merge page in a browser", () => {
       headers: { authorization: `Bearer ${key}`, "content-type": "application/json" },
       body: JSON.stringify({ name: "both-pops", collectors: ["pop-a", "pop-b"], from, to, preview: true }),
     });
-    const answer = (await api.json()) as { totals: { windows: number; kept: number }; windows: { tau: number; kept: number }[] };
+    const answer = (await api.json()) as MergeAnswer;
     expect(answer.totals.windows).toBe(6);
+    expect(answer.windows).toHaveLength(6);
     const rows = page.locator("table").first().locator("tbody tr");
     expect(await rows.count()).toBe(answer.totals.windows);
-    const firstRow = await rows.first().innerText();
-    expect(firstRow).toContain(String(answer.windows[0].kept));
+    // Each row, cell by cell, is the API's window: counts with en-US digit grouping (Intl, here),
+    // τ exactly in the cell's tooltip and, in the cell, as the page's τ format writes it.
+    const grouped = new Intl.NumberFormat("en-US");
+    for (const [i, w] of answer.windows.entries()) {
+      // 600 records a collector over 6 windows against k = 32: every merged window sampled, τ > 0.
+      expect(w.tau).toBeGreaterThan(0);
+      const cells = rows.nth(i).locator("td");
+      expect((await cells.allInnerTexts()).map((c) => c.trim())).toEqual([
+        `${new Date(w.windowStart).toISOString().slice(0, 16).replace("T", " ")} · 5 min`,
+        String(w.inputs),
+        grouped.format(w.records),
+        grouped.format(w.k),
+        tau(w.tau),
+        grouped.format(w.kept),
+      ]);
+      expect(await cells.nth(4).getAttribute("title")).toBe(String(w.tau));
+    }
 
     await page.getByRole("button", { name: "Create merge" }).click();
     await page.getByText("Created both-pops").waitFor({ timeout: 30_000 });
@@ -136,8 +154,13 @@ describe("the Merge page in a browser", () => {
     expect(progress.at(-1)).toBe("100");
     expect(await page.getByRole("progressbar", { name: "Upload progress" }).getAttribute("aria-valuenow")).toBe("100");
     expect(await page.getByText(/sent and imported/).count()).toBe(1);
-    const result = await page.getByText("windows stored").locator("..").innerText();
-    expect(result).toMatch(/6/);
+    // What the result lists equals the file sent: its windows, kept records and exact records (parsed here by the sample-file parser).
+    const sent = parseSampleFile(JSON.parse(readFileSync(path, "utf8")) as unknown).windows;
+    expect(sent).toHaveLength(6);
+    const figure = (label: string) => page.locator(`xpath=//dt[normalize-space()="${label}"]/following-sibling::dd[1]`).innerText();
+    expect(await figure("windows stored")).toBe(String(sent.length));
+    expect(await figure("kept records")).toBe(String(sent.reduce((n, w) => n + w.kept.length, 0)));
+    expect(await figure("records seen (exact)")).toBe(String(sent.reduce((n, w) => n + w.exact.records, 0n)));
     // The page reloads its data: the new collector can be merged at once, labelled as a copy.
     const mergeForm = page.locator("form").filter({ has: page.getByRole("button", { name: "Preview" }) });
     await mergeForm.getByRole("checkbox", { name: "pop-a-archive" }).waitFor({ timeout: 10_000 });
@@ -166,8 +189,8 @@ describe("the Merge page in a browser", () => {
     await page.getByLabel("File", { exact: true }).setInputFiles(path);
     await page.getByRole("button", { name: "Upload" }).click();
     await page.getByText("IPFIX file sampled into collector “probe-file”.").waitFor({ timeout: 30_000 });
-    const result = await page.getByText("flow records stored").locator("..").innerText();
-    expect(result).toMatch(/400/);
+    // The 400 records asked of the exporter script, all stored.
+    expect(await page.locator(`xpath=//dt[normalize-space()="flow records stored"]/following-sibling::dd[1]`).innerText()).toBe("400");
     expect(await page.getByText("messages", { exact: true }).locator("..").innerText()).toMatch(/16/);
     const { rows } = await t.server.db.$client.execute("SELECT sum(r.records) AS n FROM reservoirs r JOIN collectors c ON c.id = r.collector_id WHERE c.name = 'probe-file'");
     expect(Number(rows[0].n)).toBe(400);
