@@ -146,15 +146,74 @@ function roundedAnswer(a: EstimateAnswer): unknown {
   return JSON.parse(JSON.stringify(a), (_, v) => (typeof v === "number" ? Number(v.toPrecision(12)) : v));
 }
 
+// ---- a case small enough to compute by hand ---------------------------------------------------
+
+/**
+ * Twenty records in one window against k = 16, with the uniform draws u_i fixed, so every
+ * priority q_i = w_i/u_i (DLT 2007, §1) is known: the four lowest are 62.5, 80, 111.1… and 125,
+ * so the reservoir drops those four and τ = 125, the largest of them (the 17th largest). Kept with w < τ: the
+ * records of 100, 90, 70 and 50 bytes (priorities 3333.3…, 257.1…, 1000, 4545.4…). By hand, for
+ * bytes (the weight): estimate Σ max(w, τ) = 18 400 certain + 4·125 = 18 900, and
+ * Var̂ = Σ τ·max(0, τ − w) = 125·(25 + 35 + 55 + 75) = 23 750 (DLT 2007, Theorem 1 and §5).
+ * Even-numbered records come from 198.51.100.10, odd ones from 203.0.113.10 (RFC 5737).
+ */
+const HANDMADE = {
+  k: 16,
+  bytes: [5000, 4000, 3000, 2000, 900, 800, 700, 600, 500, 400, 300, 200, 100, 90, 80, 70, 60, 50, 40, 30],
+  draws: [1, 1, 1, 1, 0.75, 0.125, 0.5, 0.375, 0.2, 0.8, 0.0625, 0.45, 0.03, 0.35, 0.64, 0.07, 0.75, 0.011, 0.36, 0.48],
+};
+
+function handmadeRecords(): Fed[] {
+  return HANDMADE.bytes.map((bytes, i) => ({
+    collector: "edge-1",
+    record: {
+      src: parseAddress(i % 2 === 0 ? "198.51.100.10" : "203.0.113.10"),
+      dst: parseAddress("192.0.2.20"),
+      sport: 40_000 + i,
+      dport: 443,
+      proto: 6,
+      bytes: BigInt(bytes),
+      packets: BigInt(1 + (i % 4)),
+      start: T0 + i * 1000,
+      end: T0 + i * 1000 + 500,
+      ingressInterface: null,
+      egressInterface: null,
+      srcAs: null,
+      dstAs: null,
+    },
+  }));
+}
+
+/**
+ * The priority-sampling estimate and variance estimate of Σ x over the records `include` picks,
+ * from the definitions alone (DLT 2007: keep the k highest q_i = w_i/u_i, τ = the (k+1)-th
+ * highest; a kept record adds x/p and x²(1 − p)/p², p = min(1, w/τ)), not from the project's code.
+ */
+function byDefinition(include: (i: number) => boolean, x: (i: number) => number) {
+  const priorities = HANDMADE.bytes.map((w, i) => w / HANDMADE.draws[i]);
+  const order = priorities.map((_, i) => i).sort((a, b) => priorities[b] - priorities[a]);
+  const tau = priorities[order[HANDMADE.k]];
+  let estimate = 0;
+  let variance = 0;
+  for (const i of order.slice(0, HANDMADE.k)) {
+    if (!include(i)) continue;
+    const p = Math.min(1, HANDMADE.bytes[i] / tau);
+    estimate += x(i) / p;
+    variance += (x(i) * x(i) * (1 - p)) / (p * p);
+  }
+  return { tau, estimate, stdError: Math.sqrt(variance) };
+}
+
 // ---- the server -----------------------------------------------------------------------------------
 
 describe("/api/v1/estimate", () => {
   let dir: string;
   let server: WeirServer;
   let nodeB: ReservoirManager;
-  const fed = { alpha: [] as Fed[], exact: [] as Fed[], beta: [] as Fed[] };
-  const keys = { alpha: "", alphaIngest: "", alphaRevoked: "", exact: "", beta: "" };
-  const tenants = {} as Record<"alpha" | "exact" | "beta", Tenant>;
+  let nodeC: ReservoirManager;
+  const fed = { alpha: [] as Fed[], exact: [] as Fed[], beta: [] as Fed[], handmade: [] as Fed[] };
+  const keys = { alpha: "", alphaIngest: "", alphaRevoked: "", exact: "", beta: "", handmade: "" };
+  const tenants = {} as Record<"alpha" | "exact" | "beta" | "handmade", Tenant>;
 
   async function feed(manager: ReservoirManager, tenant: Tenant, records: Fed[]): Promise<void> {
     const collectors = new Map<string, { id: number; name: string }>();
@@ -225,10 +284,20 @@ describe("/api/v1/estimate", () => {
     fed.beta = stream(3, 100, ["edge-1"], WINDOWS);
     await feed(server.manager, tenants.beta, fed.beta);
     keys.beta = await keyOf(tenants.beta, "edge-1", "query");
+
+    // handmade: twenty records, k = 16, through a node whose uniform draws are HANDMADE.draws in order.
+    let draw = 0;
+    nodeC = new ReservoirManager(server.db, { node: "node-c", uniform: () => HANDMADE.draws[draw++] });
+    tenants.handmade = await createTenant(server.db, { slug: "handmade", sampleSize: HANDMADE.k, windowSeconds: 300 });
+    fed.handmade = handmadeRecords();
+    await feed(nodeC, tenants.handmade, fed.handmade);
+    expect(draw).toBe(HANDMADE.draws.length);
+    keys.handmade = await keyOf(tenants.handmade, "edge-1", "query");
   });
 
   afterAll(async () => {
     await nodeB?.idle();
+    await nodeC?.idle();
     await server?.close();
     if (dir) rmSync(dir, { recursive: true, force: true });
   });
@@ -316,6 +385,46 @@ describe("/api/v1/estimate", () => {
         args: [tenants.exact.id],
       });
       expect(reservoirs.rows.map((r) => r.node)).toEqual(["node-a", "node-b"]);
+    });
+
+    // The checks above measure the error by the answer's own standard error, which an inflated
+    // variance would widen along with the tolerance: here the variance is known beforehand.
+    it("gives the hand-computed estimate and standard error for twenty records at k = 16 (τ = 125)", async () => {
+      const range = { from: new Date(T0).toISOString(), to: new Date(T0 + WINDOW_MS).toISOString() };
+      const relative = (actual: number, expected: number) => Math.abs(actual - expected) / expected;
+      // By hand (see HANDMADE): bytes 18 900 ± √23 750; the source 198.51.100.10 alone keeps
+      // 5000, 3000, 900, 700, 500, 300 for certain and 100 below τ: 10 400 + 125 = 10 525, Var̂ = 125·25 = 3125.
+      const oneSource: EstimateRequest = { ...range, where: { src: ["198.51.100.10"] } };
+      const byHand: [EstimateRequest, number, number][] = [
+        [range, 18_900, 23_750],
+        [oneSource, 10_525, 3125],
+      ];
+      for (const [request, estimate, variance] of byHand) {
+        const a = await answer(keys.handmade, { ...request, metric: "bytes" });
+        expect(a.kept).toBe(request === range ? 16 : 7);
+        expect(relative(a.estimate, estimate)).toBeLessThan(1e-12);
+        expect(relative(a.stdError, Math.sqrt(variance))).toBeLessThan(1e-12);
+      }
+      // Packets and flows, by the definitions computed in byDefinition (every metric x ≠ w is a
+      // Horvitz–Thompson sum with p = min(1, w/τ), DLT 2007 §5).
+      // The definitions reproduce the hand computation for bytes.
+      const bytesByDefinition = byDefinition(() => true, (i) => HANDMADE.bytes[i]);
+      expect([bytesByDefinition.tau, bytesByDefinition.estimate]).toEqual([125, 18_900]);
+      expect(relative(bytesByDefinition.stdError, Math.sqrt(23_750))).toBeLessThan(1e-12);
+      const subsets: [EstimateRequest, (i: number) => boolean][] = [
+        [range, () => true],
+        [oneSource, (i) => i % 2 === 0],
+      ];
+      for (const [metric, x] of [["packets", (i: number) => 1 + (i % 4)], ["flows", () => 1]] as const) {
+        for (const [request, include] of subsets) {
+          const expected = byDefinition(include, x);
+          const a = await answer(keys.handmade, { ...request, metric });
+          expect(relative(a.estimate, expected.estimate), `${metric} ${JSON.stringify(request)}`).toBeLessThan(1e-12);
+          expect(relative(a.stdError, expected.stdError), `${metric} ${JSON.stringify(request)}`).toBeLessThan(1e-12);
+        }
+      }
+      // The exact counters count every record sent, the three dropped ones too.
+      expect((await answer(keys.handmade, range)).exact).toEqual({ records: 20, bytes: 18_920, packets: fed.handmade.reduce((n, f) => n + Number(f.record.packets), 0) });
     });
   });
 
