@@ -122,7 +122,7 @@ export function formatPrefix(p: Prefix): string {
  * also span the mapped space.
  *
  * @example prefixContains(parsePrefix("198.51.100.0/24"), parseAddress("198.51.100.7")) // true
- * @example prefixContains(parsePrefix("198.51.100.0/24"), parseAddress("198.51.101.7")) // false
+ * @example prefixContains(parsePrefix("198.51.100.0/24"), parseAddress("203.0.113.7"))  // false
  */
 export function prefixContains(p: Prefix, address: Uint8Array): boolean {
   const whole = p.length >> 3;

@@ -54,13 +54,21 @@ describe("claimRange: an address or CIDR as an admin types it", () => {
 });
 
 describe("ClaimIndex.resolve", () => {
-  test("a /24 covers its first and last address and nothing either side", () => {
-    // RFC 4632 §3.1: 198.51.100.0/24 is 198.51.100.0 through 198.51.100.255.
+  test("a /24 covers its first and last address and nothing of the blocks beside it", () => {
+    // RFC 4632 §3.1: 198.51.100.0/24 is 198.51.100.0 through 198.51.100.255. Outside it, the other
+    // documentation blocks (RFC 5737), below and above it in address order.
     const index = new ClaimIndex([claim("198.51.100.0/24", null, 7)]);
     expect(at(index, "198.51.100.0")).toBe(7);
     expect(at(index, "198.51.100.255")).toBe(7);
-    expect(at(index, "198.51.99.255")).toBeNull();
-    expect(at(index, "198.51.101.0")).toBeNull();
+    expect(at(index, "192.0.2.255")).toBeNull();
+    expect(at(index, "203.0.113.0")).toBeNull();
+  });
+
+  test("a /25 covers its first and last address and nothing either side", () => {
+    // RFC 4632 §3.1: 198.51.100.128/25 is .128 through .255; its neighbours inside the documentation block.
+    const index = new ClaimIndex([claim("198.51.100.0/26", null, 5), claim("198.51.100.128/25", null, 7)]);
+    expect([at(index, "198.51.100.127"), at(index, "198.51.100.128"), at(index, "198.51.100.255")]).toEqual([null, 7, 7]);
+    expect([at(index, "198.51.100.63"), at(index, "198.51.100.64")]).toEqual([5, null]);
   });
 
   test("a prefix not on an octet boundary: 203.0.113.64/26 is .64 to .127", () => {
@@ -69,11 +77,11 @@ describe("ClaimIndex.resolve", () => {
     expect([at(index, "203.0.113.63"), at(index, "203.0.113.64"), at(index, "203.0.113.127"), at(index, "203.0.113.128")]).toEqual([null, 3, 3, null]);
   });
 
-  test("an IPv6 /31 on a 16-bit group boundary it does not align with", () => {
-    // RFC 4291 §2.3: 2001:db8::/31 holds 2001:db8:: to 2001:db9:ffff:…; 2001:dba:: differs in bit 31.
-    const index = new ClaimIndex([claim("2001:db8::/31", null, 4)]);
-    expect(at(index, "2001:db9:ffff::1")).toBe(4);
-    expect(at(index, "2001:dba::")).toBeNull();
+  test("an IPv6 /33, not on a 16-bit group boundary", () => {
+    // RFC 4291 §2.3: 2001:db8::/33 holds 2001:db8:: to 2001:db8:7fff:ffff:…; 2001:db8:8000:: differs in bit 33 (inside RFC 3849's 2001:db8::/32).
+    const index = new ClaimIndex([claim("2001:db8::/33", null, 4)]);
+    expect(at(index, "2001:db8:7fff:ffff::1")).toBe(4);
+    expect(at(index, "2001:db8:8000::")).toBeNull();
   });
 
   test("an IPv4 claim never matches an IPv6 address with the same low 32 bits", () => {

@@ -80,11 +80,11 @@ describe("exporter claims", () => {
   });
 
   it("refuses another tenant's overlapping claim, naming the claimed CIDR but not the tenant", async () => {
-    await claimExporter(db, { tenantId: riverline, collector: "pop-north", cidr: "198.51.100.0/24", domainId: null, actor: ADMIN });
-    // RFC 4632 §3.1: 198.51.100.0/25 lies inside 198.51.100.0/24.
-    const refused = await refusal(claimExporter(db, { tenantId: tributary, collector: "edge", cidr: "198.51.100.0/25", domainId: 4, actor: ADMIN }));
+    await claimExporter(db, { tenantId: riverline, collector: "pop-north", cidr: "198.51.100.0/25", domainId: null, actor: ADMIN });
+    // RFC 4632 §3.1: 198.51.100.0/26 lies inside 198.51.100.0/25.
+    const refused = await refusal(claimExporter(db, { tenantId: tributary, collector: "edge", cidr: "198.51.100.0/26", domainId: 4, actor: ADMIN }));
     expect(refused).toMatchObject({ code: "claim-overlap", status: 409, field: "cidr" });
-    expect(refused.message).toContain("overlaps 198.51.100.0/24, every domain");
+    expect(refused.message).toContain("overlaps 198.51.100.0/25, every domain");
     expect(refused.message).toContain("another tenant");
     expect(refused.message).not.toContain("riverline");
     // Nothing was left behind: no claim, no collector, no Ledger entry for the refused one.
@@ -92,9 +92,9 @@ describe("exporter claims", () => {
     expect(await sql("SELECT 1 FROM collectors WHERE tenant_id = ? AND name = 'edge'", [tributary])).toHaveLength(0);
     expect(await sql("SELECT 1 FROM audit_log WHERE tenant_id = ?", [tributary])).toHaveLength(0);
     // A wider claim over it is refused too (the ranges nest the other way).
-    expect((await refusal(claimExporter(db, { tenantId: tributary, collector: "edge", cidr: "198.51.0.0/16", actor: ADMIN }))).code).toBe("claim-overlap");
-    // Disjoint: the neighbouring /24 (RFC 4632 §3.1).
-    await claimExporter(db, { tenantId: tributary, collector: "edge", cidr: "198.51.101.0/24", actor: ADMIN });
+    expect((await refusal(claimExporter(db, { tenantId: tributary, collector: "edge", cidr: "198.51.100.0/24", actor: ADMIN }))).code).toBe("claim-overlap");
+    // Disjoint: the neighbouring /25 (RFC 4632 §3.1), the other half of the documentation block (RFC 5737).
+    await claimExporter(db, { tenantId: tributary, collector: "edge", cidr: "198.51.100.128/25", actor: ADMIN });
   });
 
   it("lets two tenants claim one range for different observation domains, not for the same one", async () => {

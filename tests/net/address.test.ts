@@ -26,7 +26,7 @@ describe("IPv4 dotted quad", () => {
     expect(parseAddress("192.0.2.1")).toEqual(mapped(192, 0, 2, 1)); // RFC 5737 §3 TEST-NET-1 address
     expect(parseIPv4("203.0.113.255")).toEqual(mapped(203, 0, 113, 255)); // RFC 5737 §3 TEST-NET-3
     expect(parseAddress("0.0.0.0")).toEqual(mapped(0, 0, 0, 0)); // common practice: the all-zero address is valid text
-    expect(parseAddress("255.255.255.255")).toEqual(mapped(255, 255, 255, 255)); // common practice: octet maximum 255
+    expect(parseAddress("255.255.255.255")).toEqual(mapped(255, 255, 255, 255)); // common practice: octet maximum 255 (the format's own end, no host's address)
   });
 
   test("formats back as dotted decimal", () => {
@@ -40,15 +40,15 @@ describe("IPv4 dotted quad", () => {
     ["192.0.2", "exactly four octets"], // common practice: strict four-part form, no inet_aton shorthand
     ["192.0.2.1.5", "exactly four octets"], // common practice
     ["192.0.02.1", "leading zeros"], // common practice: leading zeros read as octal in some tools
-    ["01.2.3.4", "leading zeros"], // common practice (as above)
-    ["1..2.3", "empty"], // common practice
-    ["1.2.3.4.", "exactly four octets"], // common practice
+    ["0192.0.2.1", "leading zeros"], // common practice (as above)
+    ["192.0..1", "empty"], // common practice
+    ["192.0.2.1.", "exactly four octets"], // common practice
     ["", "empty"], // common practice
     [" 192.0.2.1", "whitespace"], // common practice: no trimming of input
     ["192.0.2.1 ", "whitespace"], // common practice
     ["192.0.2.1/24", "prefix length"], // a prefix is not an address (RFC 4632 §3.1 notation is parsed by parsePrefix)
-    ["0x7f.0.0.1", "unexpected character"], // common practice: no hex octets
-    ["1.2.3.-4", "unexpected character"], // common practice
+    ["0xc0.0.2.1", "unexpected character"], // common practice: no hex octets
+    ["192.0.2.-1", "unexpected character"], // common practice
   ])("rejects %j (%s)", (text, reason) => {
     expect(() => parseAddress(text)).toThrow(AddressError);
     expect(() => parseAddress(text)).toThrow(reason);
@@ -64,14 +64,14 @@ describe("IPv4 dotted quad", () => {
 
   test("error messages quote the text and say what is wrong", () => {
     // Weir's own rule: a clear message for the operator (no external source).
-    expect(() => parseAddress("10.0.0.256")).toThrow('invalid IPv4 address "10.0.0.256": an IPv4 octet is over 255');
+    expect(() => parseAddress("192.0.2.256")).toThrow('invalid IPv4 address "192.0.2.256": an IPv4 octet is over 255');
     expect(() => parseAddress(42 as unknown as string)).toThrow("must be a string");
   });
 });
 
 describe("RFC 4291 §2.2 text forms", () => {
   test("form 1, the preferred x:x:x:x:x:x:x:x", () => {
-    // RFC 4291 §2.2 item 1 examples.
+    // RFC 4291 §2.2 item 1 examples (the RFC's own addresses, quoted: not documentation space).
     expect(parseIPv6("ABCD:EF01:2345:6789:ABCD:EF01:2345:6789")).toEqual(
       fromGroups([0xabcd, 0xef01, 0x2345, 0x6789, 0xabcd, 0xef01, 0x2345, 0x6789]),
     );
@@ -80,7 +80,7 @@ describe("RFC 4291 §2.2 text forms", () => {
 
   test.each([
     ["2001:DB8:0:0:8:800:200C:417A", "2001:DB8::8:800:200C:417A"], // RFC 4291 §2.2 item 2, unicast
-    ["FF01:0:0:0:0:0:0:101", "FF01::101"], // RFC 4291 §2.2 item 2, multicast
+    ["FF01:0:0:0:0:0:0:101", "FF01::101"], // RFC 4291 §2.2 item 2, multicast (the RFC's own example, quoted)
     ["0:0:0:0:0:0:0:1", "::1"], // RFC 4291 §2.2 item 2, loopback
     ["0:0:0:0:0:0:0:0", "::"], // RFC 4291 §2.2 item 2, unspecified
   ])("form 2: %s and its compressed form %s are one address", (full, compressed) => {
@@ -88,7 +88,7 @@ describe("RFC 4291 §2.2 text forms", () => {
   });
 
   test("form 2 examples in canonical text", () => {
-    // RFC 4291 §2.2 item 2 addresses, printed per RFC 5952 §4 (lowercase, "::" for the longest zero run).
+    // RFC 4291 §2.2 item 2 addresses (quoted from the RFC), printed per RFC 5952 §4 (lowercase, "::" for the longest zero run).
     expect(canonical("2001:DB8:0:0:8:800:200C:417A")).toBe("2001:db8::8:800:200c:417a");
     expect(canonical("FF01:0:0:0:0:0:0:101")).toBe("ff01::101");
     expect(canonical("0:0:0:0:0:0:0:1")).toBe("::1");
@@ -96,7 +96,7 @@ describe("RFC 4291 §2.2 text forms", () => {
   });
 
   test("form 3, x:x:x:x:x:x:d.d.d.d", () => {
-    // RFC 4291 §2.2 item 3 examples and their compressed forms.
+    // RFC 4291 §2.2 item 3 examples and their compressed forms (the RFC's own addresses, quoted: not documentation space).
     expect(parseAddress("::13.1.68.3")).toEqual(parseAddress("0:0:0:0:0:0:13.1.68.3"));
     expect(parseAddress("0:0:0:0:0:0:13.1.68.3")).toEqual(fromGroups([0, 0, 0, 0, 0, 0, 0x0d01, 0x4403]));
     expect(parseAddress("::FFFF:129.144.52.38")).toEqual(parseAddress("0:0:0:0:0:FFFF:129.144.52.38"));
@@ -122,7 +122,7 @@ describe("RFC 4291 §2.2 text forms", () => {
   });
 
   test.each([
-    ["fe80::1%eth0", "zone identifiers"], // RFC 4007 §11 zone ids are scoped text, not part of a flow's address (recalled from memory)
+    ["2001:db8::1%eth0", "zone identifiers"], // RFC 4007 §11 zone ids are scoped text, not part of a flow's address (recalled from memory)
     ["[2001:db8::1]", "brackets"], // RFC 3986 §3.2.2: brackets belong to URI syntax, not to the address (recalled from memory)
     [" ::1", "whitespace"], // common practice: no trimming
     ["::1 ", "whitespace"], // common practice
@@ -130,15 +130,15 @@ describe("RFC 4291 §2.2 text forms", () => {
     ["12345::", "more than 4 hex digits"], // RFC 4291 §2.2 item 1: one to four hex digits per piece
     ["2001:db8:0:0:0:0:0:1:2", "more than 8 groups"], // RFC 4291 §2.2 item 1: eight 16-bit pieces
     ["2001:db8:0:0:0:0:1", "expected 8 groups"], // RFC 4291 §2.2 item 1
-    ["1:2:3:4::5:6:7:8", "at least one zero group"], // RFC 4291 §2.2 item 2: "::" indicates one or more groups of zeros
-    [":1::", "single colon"], // RFC 4291 §2.2: a lone colon stands for no piece
-    ["1::2:", "single colon"], // RFC 4291 §2.2
+    ["2001:db8:3:4::5:6:7:8", "at least one zero group"], // RFC 4291 §2.2 item 2: "::" indicates one or more groups of zeros
+    [":2001:db8::", "single colon"], // RFC 4291 §2.2: a lone colon stands for no piece
+    ["2001:db8::2:", "single colon"], // RFC 4291 §2.2
     [":::", "empty"], // RFC 4291 §2.2
-    ["1:2:3:4:5:6:7:1.2.3.4", "too many groups"], // RFC 4291 §2.2 item 3: six hex pieces, then d.d.d.d
-    ["::1.2.3", "exactly four octets"], // RFC 4291 §2.2 item 3: d.d.d.d is four decimal pieces
-    ["::1.2.3.04", "leading zeros"], // common practice, as for plain IPv4
-    ["::256.1.1.1", "over 255"], // RFC 4291 §2.2 item 3: decimal values of 8-bit pieces
-    ["1.2.3.4::", "unexpected character"], // RFC 4291 §2.2 item 3: the dotted part comes last
+    ["2001:db8:3:4:5:6:7:192.0.2.1", "too many groups"], // RFC 4291 §2.2 item 3: six hex pieces, then d.d.d.d
+    ["::192.0.2", "exactly four octets"], // RFC 4291 §2.2 item 3: d.d.d.d is four decimal pieces
+    ["::192.0.2.01", "leading zeros"], // common practice, as for plain IPv4
+    ["::256.0.2.1", "over 255"], // RFC 4291 §2.2 item 3: decimal values of 8-bit pieces
+    ["192.0.2.1::", "unexpected character"], // RFC 4291 §2.2 item 3: the dotted part comes last
     ["g::1", "unexpected character"], // RFC 4291 §2.2: hexadecimal digits only
     ["2001:db8::/32", "prefix length"], // RFC 4291 §2.3 prefixes are parsed by parsePrefix
   ])("rejects %j (%s)", (text, reason) => {
@@ -162,7 +162,7 @@ describe("RFC 5952 canonical text", () => {
     ["2001:db8::0:1", "2001:db8::1"], // RFC 5952 §4.2.1
     ["2001:db8:0:1:1:1:1:1", "2001:db8:0:1:1:1:1:1"], // RFC 5952 §4.2.2: never "::" for one 0 field
     ["2001:db8::1:1:1:1:1", "2001:db8:0:1:1:1:1:1"], // RFC 5952 §4.2.2
-    ["2001:0:0:1:0:0:0:1", "2001:0:0:1::1"], // RFC 5952 §4.2.3: the longest run is shortened
+    ["2001:0:0:1:0:0:0:1", "2001:0:0:1::1"], // RFC 5952 §4.2.3: the longest run is shortened (the RFC's own example, quoted)
     ["2001:db8:0:0:1:0:0:1", "2001:db8::1:0:0:1"], // RFC 5952 §4.2.3: on a tie, the first run
     ["2001:DB8:0:0:1::1", "2001:db8::1:0:0:1"], // RFC 5952 §4.3: lowercase (input spelling from the RFC 5952 §2 list, recalled from memory)
     ["2001:db8:aaaa:bbbb:cccc:dddd:eeee:AaAa", "2001:db8:aaaa:bbbb:cccc:dddd:eeee:aaaa"], // RFC 5952 §2.3 and §4.3 (recalled from memory)
@@ -172,7 +172,7 @@ describe("RFC 5952 canonical text", () => {
     ["2001:db8:0:0:aaaa::1", "2001:db8::aaaa:0:0:1"], // RFC 5952 §2.2 example, §4.2.3 result (first of equal runs)
     ["2001:db8:0:0:1:0:0:0", "2001:db8:0:0:1::"], // RFC 5952 §4.2.3: the trailing run is longer (cross-checked with ipaddr.js below)
     ["0:0:0:0:0:0:0:1", "::1"], // RFC 5952 §4.2.1 with RFC 4291 §2.2 loopback
-    ["1:0:0:0:0:0:0:0", "1::"], // RFC 5952 §4.2.1 (common practice for the trailing form)
+    ["2001:db8:0:0:0:0:0:0", "2001:db8::"], // RFC 5952 §4.2.1 (common practice for the trailing form)
     ["::ffff:192.0.2.1", "192.0.2.1"], // Weir prints IPv4-mapped values as IPv4 (RFC 4291 §2.5.5.2)
   ])("%s → %s", (input, expected) => {
     expect(canonical(input)).toBe(expected);
@@ -191,8 +191,9 @@ describe("RFC 5952 canonical text", () => {
   test("isIPv4Mapped checks the ::ffff:0:0/96 head", () => {
     // RFC 4291 §2.5.5.2: 80 zero bits, then 16 one bits.
     expect(isIPv4Mapped(mapped(192, 0, 2, 1))).toBe(true);
+    // Near misses of that head by construction, around 192.0.2.1 (RFC 5737): one bit short of it, and a documentation prefix (RFC 3849) in front.
     expect(isIPv4Mapped(parseAddress("::fffe:c000:201"))).toBe(false);
-    expect(isIPv4Mapped(parseAddress("1::ffff:c000:201"))).toBe(false);
+    expect(isIPv4Mapped(parseAddress("2001:db8::ffff:c000:201"))).toBe(false);
     expect(isIPv4Mapped(new Uint8Array(4))).toBe(false);
   });
 });
