@@ -401,6 +401,7 @@ describe("/api/v1/estimate", () => {
       ];
       for (const [request, estimate, variance] of byHand) {
         const a = await answer(keys.handmade, { ...request, metric: "bytes" });
+        // Kept: all k = 16, or the seven even-numbered ones among them (records 0, 2, …, 12; see above).
         expect(a.kept).toBe(request === range ? 16 : 7);
         expect(relative(a.estimate, estimate)).toBeLessThan(1e-12);
         expect(relative(a.stdError, Math.sqrt(variance))).toBeLessThan(1e-12);
