@@ -320,6 +320,39 @@ describe("POST and DELETE /api/v1/merge", () => {
       expect((await both.json()).error.code).toBe("overlapping_collectors");
     });
 
+    it("is refused together with another merge that shares one of its inputs (pop-west), and counted with one that shares none", async () => {
+      // west-lab merges pop-west (also an input of all-pops) with lab-tap; neither merge is an input of the other.
+      const made = await post({ name: "west-lab", collectors: ["pop-west", "lab-tap"], from: FROM, to: TO });
+      expect(made.status, await made.clone().text()).toBe(201);
+      // Each merge alone is a fine question.
+      expect((await estimate("&collectors=west-lab")).status).toBe(200);
+      // DLT 2007 sums the samples of disjoint streams only; pop-west's records sit in both merges, so
+      // summing them counts pop-west twice: refused with 422, whichever order the merges are named in.
+      for (const names of ["all-pops,west-lab", "west-lab,all-pops"]) {
+        const res = await estimate(`&collectors=${names}`);
+        expect(res.status, names).toBe(422);
+        const { error } = await res.json();
+        expect(error.code, names).toBe("overlapping_collectors");
+        // The one collector whose records both merges hold (from the inputs the test gave each merge).
+        expect(error.details, names).toEqual([{ path: "where.collectors", message: expect.stringContaining("both hold a sample of pop-west's records") }]);
+      }
+      // Disjoint inputs (pop-west and lab-tap against pop-east) are summed without complaint.
+      const disjoint = await estimate("&collectors=west-lab,pop-east");
+      expect(disjoint.status, await disjoint.clone().text()).toBe(200);
+      // Asked explicitly, the overlap is counted and stated: the exact records are pop-west's twice
+      // plus pop-east's once (counted in the test from the records it sent; lab-tap got none).
+      const allowed = await fetch(`${t.url}/api/v1/estimate`, {
+        method: "POST",
+        headers: { authorization: `Bearer ${queryKey}`, "content-type": "application/json" },
+        body: JSON.stringify({ from: FROM, to: TO, where: { collectors: ["all-pops", "west-lab"] }, allowOverlap: true }),
+      });
+      expect(allowed.status, await allowed.clone().text()).toBe(200);
+      const answer = (await allowed.json()) as EstimateAnswer;
+      expect(answer.exact.records).toBe(2 * sent.get("pop-west")!.length + sent.get("pop-east")!.length);
+      expect(answer.collectorRule!.rule).toBe("overlap-allowed");
+      expect(answer.collectorRule!.overlaps.map((o) => [o.code, o.shared])).toEqual([["overlapping_collectors", "pop-west"]]);
+    });
+
     it("keeps k_m = min(sample size wanted, inputs' k): a smaller merge is the union's sample of that size", async () => {
       const res = await post({ name: "all-pops-16", collectors: ["pop-east", "pop-west"], from: FROM, to: TO, sampleSize: 16 });
       expect(res.status, await res.clone().text()).toBe(201);
