@@ -113,6 +113,47 @@ describe("merging collectors of a coordinated tenant", () => {
     expect(row).toMatchObject({ coordinated: 1, duplicates_dropped: expectedTotal });
   });
 
+  it("stores exact records, bytes and packets: what both collectors received, less the copies both kept, counted once", async () => {
+    // Computed in the test from the records it sent: each collector's exact counters are the sums
+    // of what it received; a flow both collectors kept (the same coordinated draw, so the same
+    // priority, in both samples) reaches the merge twice and is counted once, so its records,
+    // bytes and packets come off once. Flows only one collector kept, or neither, are counted in
+    // both inputs' sums and stay (the merge cannot see them: the documented upper bound).
+    const merged = await storedReservoirs(t.server.db.$client, tenantId, "core-both");
+    expect(merged).toHaveLength(2);
+    const total = { records: 0, bytes: 0n, packets: 0n };
+    for (const m of merged) {
+      const inWindow = (list: FlowJson[]) => list.filter((r) => r.start >= m.windowStart && r.start < m.windowStart + WINDOW_MS);
+      const received = [...inWindow(byCollector["core-a"]), ...inWindow(byCollector["core-b"])];
+      const keptA = new Set(coordinatedSample(inWindow(byCollector["core-a"]).map(toRecord), K).kept().map((e) => keyOf(e.item)));
+      const keptBoth = coordinatedSample(inWindow(byCollector["core-b"]).map(toRecord), K)
+        .kept()
+        .filter((e) => keptA.has(keyOf(e.item)))
+        .map((e) => e.item);
+      // Some copies were kept by both, so the subtraction is exercised in every window.
+      expect(keptBoth.length).toBeGreaterThan(0);
+      const sum = (list: { bytes: number | bigint; packets: number | bigint }[], field: "bytes" | "packets") =>
+        list.reduce((s, r) => s + BigInt(r[field]), 0n);
+      const expected = {
+        records: received.length - keptBoth.length,
+        bytes: sum(received, "bytes") - sum(keptBoth, "bytes"),
+        packets: sum(received, "packets") - sum(keptBoth, "packets"),
+      };
+      expect({ records: m.records, bytes: m.bytes, packets: m.packets }).toEqual(expected);
+      // The merge's answer states the same exact record count for the window.
+      const stated = answer.windows.find((w) => Date.parse(w.windowStart) === m.windowStart);
+      expect(stated?.records).toBe(expected.records);
+      total.records += expected.records;
+      total.bytes += expected.bytes;
+      total.packets += expected.packets;
+    }
+    expect(answer.totals.records).toBe(total.records);
+    // An estimate by the merge's name reports the same exact counters, summed over its windows.
+    const res = await fetch(`${t.url}/api/v1/estimate?from=${FROM}&to=${TO}&collectors=core-both`, { headers: { authorization: `Bearer ${queryKey}` } });
+    const body = (await res.json()) as EstimateAnswer;
+    expect(body.exact).toEqual({ records: total.records, bytes: Number(total.bytes), packets: Number(total.packets) });
+  });
+
   it("answers estimates by the merge's name", async () => {
     const res = await fetch(`${t.url}/api/v1/estimate?from=${FROM}&to=${TO}&collectors=core-both`, { headers: { authorization: `Bearer ${queryKey}` } });
     expect(res.status).toBe(200);
