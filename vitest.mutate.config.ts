@@ -4,11 +4,11 @@ import base from "./vitest.config";
 // The tests `npm run mutate` (StrykerJS) runs against each mutant: those of the scoped code
 // (stryker.config.mjs), without the browser and production-build tests, which test the
 // console and the build rather than the scoped modules and would make every mutant cost minutes.
-// MUTATE_TESTS narrows them to some folders (comma-separated), e.g. MUTATE_TESTS=tests/sampling
-// for a quick score of app/sampling against its own unit tests alone (a lower bound: the
-// integration tests left out may kill more).
-const narrowed = process.env.MUTATE_TESTS?.split(",").map(
-  (dir) => `${dir.replace(/\/$/, "")}/**/*.test.ts`,
+// MUTATE_TESTS narrows them to some folders or test files (comma-separated), e.g.
+// MUTATE_TESTS=tests/sampling for a score of app/sampling against its own unit tests alone
+// (a lower bound: the integration tests left out may kill more).
+const narrowed = process.env.MUTATE_TESTS?.split(",").map((entry) =>
+  entry.endsWith(".test.ts") ? entry : `${entry.replace(/\/$/, "")}/**/*.test.ts`,
 );
 
 // Spread, not mergeConfig: that would append these to the base config's include of every test.
