@@ -1,6 +1,7 @@
 import { afterAll, beforeAll, describe, expect, it } from "vitest";
 import type { EstimateAnswer } from "~/query/answer";
 import { seededUniform } from "~/sampling/uniform";
+import type { TestFlow } from "../collect/helpers";
 import { postFlows, startTestServer, tenantWithKey, type TestServer } from "../helpers/server";
 
 // A tenant whose sampling weight is packets must sample by packets: w_i = packets_i, priority
@@ -18,25 +19,13 @@ const N = 60;
 const WINDOW_MS = 300_000;
 const T0 = Date.UTC(2024, 4, 3, 9, 0);
 
-interface SentFlow {
-  src: string;
-  dst: string;
-  sport: number;
-  dport: number;
-  proto: number;
-  bytes: number;
-  packets: number;
-  start: number;
-  end: number;
-}
-
 /**
  * N invented flows in one window, in documentation space (RFC 5737). Packets are heavy-tailed
  * (Pareto, shape 1.2) and the packet size varies from 40 to 1500 bytes independently, so the
  * largest flows by bytes and by packets are not the same flows. Each source port is unique: it
  * names the flow when the stored rows are matched to what was sent.
  */
-function sentFlows(): SentFlow[] {
+function sentFlows(): TestFlow[] {
   const u = seededUniform(99);
   return Array.from({ length: N }, (_, i) => {
     const packets = Math.max(1, Math.floor(1 / Math.pow(u(), 1 / 1.2)));

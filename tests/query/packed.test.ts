@@ -77,6 +77,13 @@ describe("packed closed windows", () => {
     { ...range, where: { srcAs: [64500], inIf: [7] }, metric: "flows" },
     { ...range, where: { src: ["2001:db8::/32"] }, groupBy: "proto" },
   ];
+  // The window of `exactWindow` alone (τ = 0 there until the late record below).
+  const exactRange = {
+    from: at(3) - 1000,
+    to: at(3) - 1000 + WINDOW_MS,
+    where: {},
+    metric: "bytes",
+  };
   let unpacked: unknown[];
   let db: Db;
   let tenant: Tenant;
@@ -179,12 +186,6 @@ describe("packed closed windows", () => {
     const packed = await Promise.all(questions.map((q) => ask(db, q)));
     expect(packed).toEqual(unpacked);
     // τ = 0 in the windows asked about below: the estimate is the exact sum, ± 0.
-    const exactRange = {
-      from: at(3) - 1000,
-      to: at(3) - 1000 + WINDOW_MS,
-      where: {},
-      metric: "bytes",
-    };
     const answer = await ask(db, exactRange);
     expect(answer.estimate).toBe(sum(exactWindow, (r) => r.bytes));
     expect(answer.ci95).toEqual([answer.estimate, answer.estimate]);
@@ -216,12 +217,6 @@ describe("packed closed windows", () => {
       bytes: 777n,
     }));
     await ingest(db, [late]);
-    const exactRange = {
-      from: at(3) - 1000,
-      to: at(3) - 1000 + WINDOW_MS,
-      where: {},
-      metric: "bytes",
-    };
     // Read from SQLite (nothing live, nothing cached), where the window's copy is now stale.
     const answer = await ask(db, exactRange);
     expect(answer.estimate).toBe(sum(exactWindow, (r) => r.bytes) + 777);
